@@ -82,6 +82,10 @@ type Spec struct {
 	// Watch holds the spec's optional watch section (tolerances for
 	// comparing fits) as written; the engine does not interpret it.
 	Watch map[string]any `json:"watch,omitempty"`
+	// Lines gives the line in the spec file of each top-level key ParseSpec
+	// read ("response", "weights", …), for error messages; nil for a spec
+	// that did not come from a file.
+	Lines map[string]int `json:"-"`
 }
 
 // TermSpec is one term of a model spec.

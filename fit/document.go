@@ -1,0 +1,147 @@
+package fit
+
+// Document is the fit document: everything a fit found, and everything
+// needed to predict from it or compare it with another fit later. It is
+// what `curvewatch fit` writes as JSON and what the daemon stores.
+//
+// Curves are centred (they sum to zero over the fitted rows); their grid
+// values and standard errors are on the link scale. Standard errors come from
+// the Bayesian posterior covariance of the coefficients (Wahba 1983;
+// Silverman 1985), scaled by Scale.
+type Document struct {
+	Format            string       `json:"format"`
+	Model             string       `json:"model"`
+	Family            Family       `json:"family"`
+	Link              Link         `json:"link"`
+	N                 int          `json:"n"`
+	Deviance          float64      `json:"deviance"`
+	NullDeviance      float64      `json:"null_deviance"`
+	DevianceExplained float64      `json:"deviance_explained"`
+	Scale             float64      `json:"scale"`
+	ScaleEstimated    bool         `json:"scale_estimated"`
+	EDFTotal          float64      `json:"edf_total"`
+	ResidualDF        float64      `json:"residual_df"`
+	LogLikelihood     float64      `json:"log_likelihood"`
+	AIC               float64      `json:"aic"`
+	Criterion         Criterion    `json:"criterion"`
+	Intercept         Estimate     `json:"intercept"`
+	Terms             []TermResult `json:"terms"`
+	Convergence       Convergence  `json:"convergence"`
+	Data              DataRecord   `json:"data"`
+	Warnings          []string     `json:"warnings,omitempty"`
+	Spec              *Spec        `json:"spec"`
+	// Coefficients are the fitted β: the intercept first, then each term's
+	// coefficients in order (see TermResult.Coefficients for the ranges).
+	// Linear terms are per unit of their column.
+	Coefficients []float64 `json:"coefficients"`
+	// Covariance is the posterior covariance of Coefficients, row by row.
+	Covariance [][]float64 `json:"covariance"`
+}
+
+// FormatVersion names the layout of Document.
+const FormatVersion = "curvewatch-fit/1"
+
+// Estimate is a point estimate with its standard error.
+type Estimate struct {
+	Estimate float64 `json:"estimate"`
+	SE       float64 `json:"se"`
+}
+
+// Criterion is the smoothing-selection criterion and its value at the fit.
+type Criterion struct {
+	// Name is reml, gcv, ubre or none (no smoothing strength was chosen).
+	Name  string  `json:"name"`
+	Value float64 `json:"value"`
+	// Iterations and Converged describe the final smoothing selection.
+	Iterations int  `json:"iterations"`
+	Converged  bool `json:"converged"`
+}
+
+// Convergence records the penalised IRLS iterations.
+type Convergence struct {
+	Converged bool `json:"converged"`
+	// Iterations counts PIRLS steps (passes over the data that updated β).
+	Iterations int `json:"iterations"`
+	// RelativeChange is the last relative change of the penalised deviance.
+	RelativeChange float64 `json:"relative_change"`
+	// Passes counts every pass over the rows, including the first summary.
+	Passes int `json:"passes"`
+	// Accumulation is cross-products or householder (see DEVELOPERS.md).
+	Accumulation string `json:"accumulation"`
+}
+
+// DataRecord describes the rows a fit saw.
+type DataRecord struct {
+	RowsRead int `json:"rows_read"`
+	RowsUsed int `json:"rows_used"`
+	// Dropped counts rows left out for a missing or non-finite value, by
+	// the first such column of the row.
+	Dropped map[string]int `json:"dropped,omitempty"`
+}
+
+// TermResult is one fitted term.
+type TermResult struct {
+	Name    string   `json:"name"`
+	Kind    TermKind `json:"kind"`
+	Columns []string `json:"columns"`
+	EDF     float64  `json:"edf"`
+	// Smoothing holds the smoothing strengths λ (one per penalty) of a
+	// curve or surface, on the scale of the penalty βᵀSβ.
+	Smoothing      []float64 `json:"smoothing,omitempty"`
+	SmoothingFixed bool      `json:"smoothing_fixed,omitempty"`
+	// Grid tabulates a curve over its data range.
+	Grid *CurveGrid `json:"grid,omitempty"`
+	// SurfaceGrid tabulates a surface over its data rectangle.
+	SurfaceGrid *SurfaceGrid `json:"surface_grid,omitempty"`
+	// Estimate and SE are set for a linear term (per unit of its column).
+	Estimate *float64 `json:"estimate,omitempty"`
+	SE       *float64 `json:"se,omitempty"`
+	// Reference and Levels are set for a factor: each level's difference
+	// from the reference level on the link scale.
+	Reference string              `json:"reference,omitempty"`
+	Levels    map[string]Estimate `json:"levels,omitempty"`
+	// Range holds each column's [min, max] over the fitted rows.
+	Range [][2]float64 `json:"range,omitempty"`
+	// Coefficients locates the term's coefficients: [first, count].
+	Coefficients [2]int `json:"coefficients"`
+	// Basis holds what prediction needs to rebuild the model matrix.
+	Basis *BasisRecord `json:"basis,omitempty"`
+	// Aliased lists coefficients fixed at zero because their columns were
+	// linear combinations of earlier ones (factor levels by name).
+	Aliased []string `json:"aliased,omitempty"`
+}
+
+// CurveGrid is a curve tabulated on evenly spaced points.
+type CurveGrid struct {
+	X   []float64 `json:"x"`
+	Fit []float64 `json:"fit"`
+	SE  []float64 `json:"se"`
+}
+
+// SurfaceGrid is a surface tabulated on a rectangular grid; Fit[i][j] is at
+// (X1[i], X2[j]).
+type SurfaceGrid struct {
+	X1  []float64   `json:"x1"`
+	X2  []float64   `json:"x2"`
+	Fit [][]float64 `json:"fit"`
+	SE  [][]float64 `json:"se"`
+}
+
+// BasisRecord is a curve or surface basis as stored in the document. Each
+// margin is a cubic B-spline basis on Knots; the term's coefficients β map to
+// B-spline coefficients through Z (Width×len(β), row-major), which absorbs
+// the constraints.
+type BasisRecord struct {
+	Margins []MarginRecord `json:"margins"`
+	Width   int            `json:"width"`
+	Z       []float64      `json:"z"`
+}
+
+// MarginRecord is one B-spline margin: its knot vector and the interval
+// [Lo, Hi] outside which it continues as a straight line.
+type MarginRecord struct {
+	Basis Basis     `json:"basis"`
+	Knots []float64 `json:"knots"`
+	Lo    float64   `json:"lo"`
+	Hi    float64   `json:"hi"`
+}

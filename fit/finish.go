@@ -1,0 +1,293 @@
+package fit
+
+import (
+	"context"
+	"fmt"
+	"math"
+)
+
+// nullMean returns the fitted mean of the intercept-only model as a
+// function of the offset. Without an offset it is the weighted mean
+// response; with one it is found by IRLS on the intercept alone.
+func (f *fitter) nullMean(ctx context.Context, sum *summary) (func(float64) float64, error) {
+	link := f.m.link
+	if f.m.spec.Offset == "" {
+		mu := sum.yMean
+		return func(float64) float64 { return mu }, nil
+	}
+	d0 := &design{p: 1, nnz: 1, pc: 1}
+	st := &pirlsState{d: d0, z: []float64{1}}
+	var beta []float64
+	for it := 0; it < 50; it++ {
+		res, err := f.pass(ctx, st, beta, crossProducts, nil, 1)
+		if err != nil {
+			return nil, err
+		}
+		f.progress("null model", res.n, res.dev)
+		if res.xtwx[0] <= 0 {
+			return nil, fmt.Errorf("the intercept-only model has no information")
+		}
+		b := res.xtwz[0] / res.xtwx[0]
+		if beta != nil && math.Abs(b-beta[0]) <= 1e-12*(1+math.Abs(b)) {
+			beta = []float64{b}
+			break
+		}
+		beta = []float64{b}
+	}
+	b0 := beta[0]
+	return func(off float64) float64 { return link.Inverse(b0 + off) }, nil
+}
+
+// document evaluates the final fit and assembles the fit document.
+func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*Document, error) {
+	m, d := f.m, st.d
+	nullMu, err := f.nullMean(ctx, sum)
+	if err != nil {
+		return nil, err
+	}
+	// Scale for the log-likelihood: the maximum-likelihood estimate D/n for
+	// gaussian and gamma (as in most GLM software), 1 otherwise.
+	phiLL := 1.0
+	if !m.fam.FixedScale() {
+		prevDev := st.eval.sol.rss
+		if st.res != nil {
+			prevDev = st.res.dev
+		}
+		phiLL = prevDev / float64(sum.rowsUsed)
+		if m.fam.Name() == "gaussian" && m.spec.Weights != "" {
+			phiLL = prevDev / float64(sum.rowsUsed)
+		}
+	}
+	res, err := f.pass(ctx, st, st.beta, evaluateOnly, nullMu, phiLL)
+	if err != nil {
+		return nil, err
+	}
+	f.progress("final", res.n, res.dev)
+	if res.invalid {
+		return nil, fmt.Errorf("the final coefficients give means outside the %s family's range", m.fam.Name())
+	}
+	if m.fam.Name() == "binomial" && res.boundary > 0 && res.maxEta >= logitClamp-1e-9 {
+		return nil, fmt.Errorf("complete or quasi-complete separation: %d rows are fitted with probability 0 or 1 and their coefficients grow without bound; remove or merge the terms that separate the outcomes, or give their effect a penalty (a curve)", res.boundary)
+	}
+	sol := st.eval.sol
+	pc := d.pc
+	edfCoef := st.pr.edfPerCoefficient(&sol)
+	edf := 0.0
+	for _, e := range edfCoef {
+		edf += e
+	}
+	n := float64(res.n)
+	scale := 1.0
+	if !m.fam.FixedScale() {
+		if n-edf <= 0 {
+			return nil, fmt.Errorf("no residual degrees of freedom (%d rows, %.1f effective degrees of freedom); use more rows or smaller sizes", res.n, edf)
+		}
+		scale = res.pearson / (n - edf)
+	}
+	// Posterior covariance H⁻¹φ in the internal parametrisation, then the
+	// linear map T to the reported one (linear terms per unit of their
+	// column, the intercept at zero of every linear covariate).
+	tm := make([]float64, pc*pc)
+	for i := 0; i < pc; i++ {
+		tm[i*pc+i] = 1
+	}
+	for _, t := range d.terms {
+		if t.spec.Kind == Linear && t.q == 1 {
+			c := t.cstart
+			tm[c*pc+c] = 1 / t.scale
+			tm[0*pc+c] = -t.center / t.scale
+		}
+	}
+	beta := matMul(tm, st.beta, pc, pc, 1)
+	vint := make([]float64, pc*pc)
+	for i := range vint {
+		vint[i] = sol.hinv[i] * scale
+	}
+	v := matMul(matMul(tm, vint, pc, pc, pc), transpose(tm, pc, pc), pc, pc, pc)
+	cov := make([][]float64, pc)
+	for i := range cov {
+		cov[i] = append([]float64(nil), v[i*pc:i*pc+pc]...)
+	}
+	se := func(i int) float64 { return math.Sqrt(math.Max(0, v[i*pc+i])) }
+
+	doc := &Document{
+		Format: FormatVersion, Model: m.spec.Name, Family: m.spec.Family, Link: m.spec.Link,
+		N: res.n, Deviance: res.dev, NullDeviance: res.nullDev,
+		Scale: scale, ScaleEstimated: !m.fam.FixedScale(), EDFTotal: edf, ResidualDF: n - edf,
+		Intercept:    Estimate{Estimate: beta[0], SE: se(0)},
+		Coefficients: beta, Covariance: cov, Spec: m.spec,
+		Data: DataRecord{RowsRead: sum.rowsRead, RowsUsed: sum.rowsUsed, Dropped: sum.dropped},
+	}
+	if len(doc.Data.Dropped) == 0 {
+		doc.Data.Dropped = nil
+	}
+	if res.nullDev > 0 {
+		doc.DevianceExplained = math.Max(0, math.Min(1, (res.nullDev-res.dev)/res.nullDev))
+	} else {
+		f.warn = append(f.warn, "the response is constant, so there is no deviance to explain")
+	}
+	doc.LogLikelihood = res.logLik
+	k := edf
+	if !m.fam.FixedScale() {
+		k++
+	}
+	doc.AIC = -2*res.logLik + 2*k
+	doc.Criterion = Criterion{Name: "none", Value: 0, Converged: true}
+	if len(st.sel.free) > 0 {
+		doc.Criterion = Criterion{Name: st.sel.crit.String(), Value: st.eval.v, Iterations: st.selRes.iterations, Converged: st.selRes.converged}
+		if !st.selRes.converged {
+			f.warn = append(f.warn, "the smoothing-strength search stopped before its gradient vanished; the strengths may be slightly off")
+		}
+	}
+	acc := "cross-products"
+	if f.mode == householder {
+		acc = "householder"
+	}
+	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
+	lambda := st.sel.lambdaAt(st.rho)
+	for _, t := range d.terms {
+		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased}
+		for c := 0; c < t.q; c++ {
+			tr.EDF += edfCoef[t.cstart+c]
+		}
+		for _, col := range t.spec.Columns {
+			if stc := sum.numeric[col]; stc != nil && t.spec.Kind != Factor {
+				tr.Range = append(tr.Range, [2]float64{stc.min, stc.max})
+			}
+		}
+		switch t.spec.Kind {
+		case Curve, Surface:
+			for k := range t.rawPens {
+				tr.Smoothing = append(tr.Smoothing, lambda[t.penStart+k])
+			}
+			tr.SmoothingFixed = len(t.spec.Smoothing) > 0
+			tr.Basis = t.record()
+			if t.spec.Kind == Curve {
+				tr.Grid = curveGrid(t, tr.Basis, beta, v, pc, f.opt.GridPoints)
+			} else {
+				tr.SurfaceGrid = surfaceGrid(t, tr.Basis, beta, v, pc, f.opt.SurfaceGridPoints)
+			}
+		case Linear:
+			if t.q == 1 {
+				e, s := beta[t.cstart], se(t.cstart)
+				tr.Estimate, tr.SE = &e, &s
+			}
+		case Factor:
+			tr.Reference = t.levels[0]
+			tr.Levels = map[string]Estimate{}
+			for c, raw := range t.active {
+				tr.Levels[t.levels[raw+1]] = Estimate{Estimate: beta[t.cstart+c], SE: se(t.cstart + c)}
+			}
+		}
+		doc.Terms = append(doc.Terms, tr)
+	}
+	doc.Warnings = f.warn
+	return doc, nil
+}
+
+func transpose(a []float64, r, c int) []float64 {
+	out := make([]float64, r*c)
+	for i := 0; i < r; i++ {
+		for j := 0; j < c; j++ {
+			out[j*r+i] = a[i*c+j]
+		}
+	}
+	return out
+}
+
+// record stores a penalised term's basis for prediction.
+func (t *termDesign) record() *BasisRecord {
+	rec := &BasisRecord{Width: t.width, Z: t.z}
+	add := func(c interface {
+		Len() int
+	}, b Basis, knots []float64, lo, hi float64) {
+		rec.Margins = append(rec.Margins, MarginRecord{Basis: b, Knots: knots, Lo: lo, Hi: hi})
+	}
+	if t.curve != nil {
+		add(t.curve, t.spec.Basis, t.curve.B.Knots, t.curve.Lo, t.curve.Hi)
+	}
+	for _, mg := range t.margins {
+		if mg != nil {
+			add(mg, t.spec.Basis, mg.B.Knots, mg.Lo, mg.Hi)
+		}
+	}
+	return rec
+}
+
+// curveGrid tabulates a curve and its pointwise standard error
+// √(g V gᵀ), g the row of the model matrix at x.
+func curveGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points int) *CurveGrid {
+	g := &CurveGrid{X: make([]float64, points), Fit: make([]float64, points), SE: make([]float64, points)}
+	lo, hi := t.curve.Lo, t.curve.Hi
+	if lo > hi {
+		lo, hi = hi, lo
+	}
+	row := make([]float64, t.q)
+	var buf [4]float64
+	for i := range g.X {
+		x := lo + (hi-lo)*float64(i)/float64(points-1)
+		if i == points-1 {
+			x = hi
+		}
+		g.X[i] = x
+		clear(row)
+		first := t.curve.Row(x, buf[:])
+		for k := 0; k < 4; k++ {
+			for j := 0; j < t.q; j++ {
+				row[j] += buf[k] * t.z[(first+k)*t.q+j]
+			}
+		}
+		g.Fit[i], g.SE[i] = rowFitSE(row, t.cstart, beta, v, pc)
+	}
+	return g
+}
+
+// rowFitSE returns gᵀβ and √(gᵀVg) for a row g over coefficients
+// start..start+len(g).
+func rowFitSE(g []float64, start int, beta, v []float64, pc int) (float64, float64) {
+	fit, vv := 0.0, 0.0
+	for a, ga := range g {
+		fit += ga * beta[start+a]
+		if ga == 0 {
+			continue
+		}
+		for b, gb := range g {
+			vv += ga * v[(start+a)*pc+start+b] * gb
+		}
+	}
+	return fit, math.Sqrt(math.Max(0, vv))
+}
+
+// surfaceGrid tabulates a surface on a points×points grid.
+func surfaceGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points int) *SurfaceGrid {
+	m1, m2 := t.margins[0], t.margins[1]
+	g := &SurfaceGrid{X1: make([]float64, points), X2: make([]float64, points)}
+	for i := 0; i < points; i++ {
+		g.X1[i] = m1.Lo + (m1.Hi-m1.Lo)*float64(i)/float64(points-1)
+		g.X2[i] = m2.Lo + (m2.Hi-m2.Lo)*float64(i)/float64(points-1)
+	}
+	k2 := m2.Len()
+	row := make([]float64, t.q)
+	var b1, b2 [4]float64
+	for _, x1 := range g.X1 {
+		fitRow, seRow := make([]float64, points), make([]float64, points)
+		for j, x2 := range g.X2 {
+			clear(row)
+			f1 := m1.Row(x1, b1[:])
+			f2 := m2.Row(x2, b2[:])
+			for a := 0; a < 4; a++ {
+				for c := 0; c < 4; c++ {
+					raw := (f1+a)*k2 + f2 + c
+					w := b1[a] * b2[c]
+					for q := 0; q < t.q; q++ {
+						row[q] += w * t.z[raw*t.q+q]
+					}
+				}
+			}
+			fitRow[j], seRow[j] = rowFitSE(row, t.cstart, beta, v, pc)
+		}
+		g.Fit = append(g.Fit, fitRow)
+		g.SE = append(g.SE, seRow)
+	}
+	return g
+}

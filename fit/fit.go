@@ -1,0 +1,419 @@
+// Package fit is curvewatch's numerical engine: penalised regression
+// splines fitted by penalised iteratively re-weighted least squares, with
+// smoothing strengths chosen by REML or GCV. It does no I/O: rows arrive
+// through a Source, results leave as a Document.
+//
+// The fit minimises the penalised deviance D(β) + Σ_j λ_j βᵀS_jβ, where
+// η = Xβ + offset, μ = g⁻¹(η), and D is the family's deviance (Wood 2017,
+// "Generalized Additive Models: An Introduction with R", 2nd ed., ch. 6).
+package fit
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+
+	"github.com/curvewatch/curvewatch/fit/family"
+)
+
+// Options tune a fit. The zero value gives the defaults.
+type Options struct {
+	// GridPoints is how many points tabulate each curve (default 200);
+	// surfaces use a square grid of SurfaceGridPoints (default 30) a side.
+	GridPoints        int
+	SurfaceGridPoints int
+	// MaxIterations bounds the PIRLS steps (default 100).
+	MaxIterations int
+	// Tolerance ends PIRLS when the penalised deviance changes by less than
+	// this fraction (default 1e-12).
+	Tolerance float64
+	// Workers is how many goroutines share a pass (default: GOMAXPROCS, at
+	// most 4).
+	Workers int
+	// Householder forces Householder accumulation (never cross-products).
+	Householder bool
+	// Progress, when set, is called after every pass over the rows.
+	Progress func(Progress)
+	// Logger receives debug records; nil discards them.
+	Logger *slog.Logger
+}
+
+// Progress reports one finished pass over the rows.
+type Progress struct {
+	Pass  int
+	Stage string // "summary", "iteration", "final"
+	Rows  int
+	// Deviance is the deviance at the pass's coefficients (NaN for the
+	// summary pass).
+	Deviance float64
+}
+
+// modelSetup holds the spec resolved against the family and the columns.
+type modelSetup struct {
+	spec       *Spec
+	fam        family.Family
+	link       family.Link
+	need       Need
+	filter     rowFilter
+	covariates []string // numeric term columns
+}
+
+// ErrNotConverged marks a fit whose iterations did not converge; the
+// document is still returned, marked Convergence.Converged = false.
+var ErrNotConverged = errors.New("the fit did not converge")
+
+// Fit fits the model described by spec to the rows of src.
+//
+// When PIRLS does not converge, Fit returns the document together with an
+// error wrapping ErrNotConverged; callers must not use such a document
+// silently.
+func Fit(ctx context.Context, spec *Spec, src Source, opt Options) (*Document, error) {
+	f, err := newFitter(spec, src, opt)
+	if err != nil {
+		return nil, err
+	}
+	return f.run(ctx)
+}
+
+type fitter struct {
+	m      *modelSetup
+	src    Source
+	opt    Options
+	log    *slog.Logger
+	passes int
+	mode   passMode
+	warn   []string
+}
+
+func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
+	if spec == nil {
+		return nil, errors.New("fit: nil spec")
+	}
+	fam, link, err := family.New(string(spec.Family), string(spec.Link))
+	if err != nil {
+		return nil, fmt.Errorf("model %q: %w", spec.Name, err)
+	}
+	if err := spec.CheckColumns(src.Columns()); err != nil {
+		return nil, fmt.Errorf("model %q: %w", spec.Name, err)
+	}
+	numeric, text := spec.Columns()
+	m := &modelSetup{spec: spec, fam: fam, link: link,
+		need:   Need{Numeric: numeric, Text: text},
+		filter: rowFilter{numeric: numeric, text: text}}
+	for _, t := range spec.Terms {
+		if t.Kind == Curve || t.Kind == Surface || t.Kind == Linear {
+			for _, c := range t.Columns {
+				if !contains(m.covariates, c) {
+					m.covariates = append(m.covariates, c)
+				}
+			}
+		}
+	}
+	opt.GridPoints = cmpOr(opt.GridPoints, 200)
+	opt.SurfaceGridPoints = cmpOr(opt.SurfaceGridPoints, 30)
+	opt.MaxIterations = cmpOr(opt.MaxIterations, 100)
+	if opt.Tolerance == 0 {
+		opt.Tolerance = 1e-12
+	}
+	opt.Workers = cmpOr(opt.Workers, defaultWorkers())
+	log := opt.Logger
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	mode := crossProducts
+	if opt.Householder {
+		mode = householder
+	}
+	return &fitter{m: m, src: src, opt: opt, log: log, mode: mode}, nil
+}
+
+func cmpOr(v, d int) int {
+	if v == 0 {
+		return d
+	}
+	return v
+}
+
+func contains(list []string, s string) bool {
+	for _, x := range list {
+		if x == s {
+			return true
+		}
+	}
+	return false
+}
+
+func (f *fitter) progress(stage string, rows int, dev float64) {
+	f.passes++
+	if f.opt.Progress != nil {
+		f.opt.Progress(Progress{Pass: f.passes, Stage: stage, Rows: rows, Deviance: dev})
+	}
+}
+
+// pirlsState is the state of the penalised IRLS iteration.
+type pirlsState struct {
+	d       *design
+	z       []float64
+	pr      *problem
+	sel     *selector
+	rho     []float64
+	eval    evaluation
+	selRes  selectionResult
+	beta    []float64 // constrained coefficients
+	res     *passResult
+	relChg  float64
+	iter    int
+	conv    bool
+	aliased []int // constrained coefficients fixed at zero
+}
+
+func (f *fitter) run(ctx context.Context) (*Document, error) {
+	m := f.m
+	name := m.spec.Name
+	sum, err := summarise(ctx, m, f.src)
+	if err != nil {
+		return nil, fmt.Errorf("model %q: %w", name, err)
+	}
+	f.progress("summary", sum.rowsRead, math.NaN())
+	if n := len(sum.dropped); n > 0 {
+		f.warn = append(f.warn, fmt.Sprintf("%d of %d rows dropped for missing values (%s)", sum.rowsRead-sum.rowsUsed, sum.rowsRead, droppedText(sum.dropped)))
+	}
+	d, err := buildDesign(m, sum)
+	if err != nil {
+		return nil, fmt.Errorf("model %q: %w", name, err)
+	}
+	st, err := f.pirls(ctx, d, sum)
+	if err != nil {
+		return nil, fmt.Errorf("model %q: %w", name, err)
+	}
+	doc, err := f.document(ctx, st, sum)
+	if err != nil {
+		return nil, fmt.Errorf("model %q: %w", name, err)
+	}
+	if !doc.Convergence.Converged {
+		return doc, fmt.Errorf("model %q: %w after %d iterations (relative change %.3g); the document is marked unconverged", name, ErrNotConverged, doc.Convergence.Iterations, doc.Convergence.RelativeChange)
+	}
+	return doc, nil
+}
+
+// pass runs one pass at constrained coefficients beta (nil: starting means).
+func (f *fitter) pass(ctx context.Context, st *pirlsState, beta []float64, mode passMode, nullMu func(float64) float64, phi float64) (*passResult, error) {
+	ps := &passState{m: f.m, d: st.d, fam: f.m.fam, link: f.m.link, mode: mode, workers: f.opt.Workers, nullMu: nullMu, phi: phi}
+	if beta != nil {
+		ps.betaRaw = matMul(st.z, beta, st.d.p, st.d.pc, 1)
+	}
+	return ps.run(ctx, f.src)
+}
+
+// pirls runs penalised IRLS with the smoothing strengths re-selected on the
+// working model at every step ("performance iteration": Gu 1992; Wood 2004,
+// JASA 99). For the gaussian family with identity link one step is exact.
+func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsState, error) {
+	m := f.m
+	st := &pirlsState{d: d}
+	res, err := f.pass(ctx, st, nil, f.mode, nil, 1)
+	if err != nil {
+		return nil, err
+	}
+	f.progress("iteration", res.n, math.NaN())
+	if err := d.centre(res.colSum); err != nil {
+		return nil, err
+	}
+	if sum.rowsUsed < d.pc {
+		return nil, fmt.Errorf("%d usable rows but the model has %d coefficients; use more rows, fewer terms or smaller sizes", sum.rowsUsed, d.pc)
+	}
+	st.z = d.zFull()
+	pr, err := f.problemFrom(ctx, st, res, nil)
+	if err != nil {
+		return nil, err
+	}
+	if err := f.setupPenalties(st, pr); err != nil {
+		return nil, err
+	}
+	if err := f.dropAliased(ctx, st, res); err != nil {
+		return nil, err
+	}
+	linear := m.fam.Name() == "gaussian" && m.link.Name() == "identity"
+	// β₀: the null model, a safe point to halve steps back towards.
+	prevBeta := make([]float64, st.d.pc)
+	prevBeta[0] = m.link.Link(sum.yMean)
+	prevPen := math.Inf(1)
+	prevLambda := st.sel.lambdaAt(st.rho)
+	for st.iter = 1; st.iter <= f.opt.MaxIterations; st.iter++ {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		sr, ok := st.sel.minimise(st.rho)
+		if !ok {
+			return nil, errors.New("the penalised least-squares problem could not be solved (the model matrix is numerically singular); check for collinear or constant covariates")
+		}
+		st.selRes, st.eval, st.rho = sr, sr.eval, sr.rho
+		newBeta := sr.eval.sol.beta
+		lambda := st.sel.lambdaAt(st.rho)
+		if linear {
+			st.beta, st.conv, st.relChg = newBeta, true, 0
+			break
+		}
+		// Evaluate the new β; halve the step while the penalised deviance
+		// (at the λ that produced β) rises or the means are invalid.
+		var pen float64
+		for half := 0; ; half++ {
+			res, err = f.pass(ctx, st, newBeta, f.mode, nil, 1)
+			if err != nil {
+				return nil, err
+			}
+			f.progress("iteration", res.n, res.dev)
+			pen = res.dev + penaltyAt(st.pr, lambda, newBeta)
+			prevAtLambda := math.Inf(1)
+			if !math.IsInf(prevPen, 1) {
+				prevAtLambda = prevPen - penaltyAt(st.pr, prevLambda, prevBeta) + penaltyAt(st.pr, lambda, prevBeta)
+			}
+			if !res.invalid && pen <= prevAtLambda*(1+1e-9)+1e-12 {
+				prevPen = prevAtLambda
+				break
+			}
+			if half >= 30 {
+				return nil, errors.New("PIRLS could not find a step that lowers the penalised deviance; the model may be unsuited to the data (check the family and link)")
+			}
+			for i := range newBeta {
+				newBeta[i] = (newBeta[i] + prevBeta[i]) / 2
+			}
+		}
+		st.relChg = math.Abs(pen-prevPen) / (math.Abs(pen) + 0.1)
+		st.beta, st.res = newBeta, res
+		if st.relChg < f.opt.Tolerance {
+			st.conv = true
+			break
+		}
+		prevBeta, prevPen, prevLambda = append([]float64(nil), newBeta...), pen, lambda
+		pr, err := f.problemFrom(ctx, st, res, newBeta)
+		if err != nil {
+			return nil, err
+		}
+		st.pr.r, st.pr.f, st.pr.r0, st.pr.n = pr.r, pr.f, pr.r0, pr.n
+	}
+	if st.iter > f.opt.MaxIterations {
+		st.iter = f.opt.MaxIterations
+	}
+	// H and the EDF come from the working model at the last accepted β:
+	// re-solve it at the final λ so that β, H⁻¹ and the EDF belong together
+	// (the document's statistics are then evaluated at this β).
+	if !linear && st.res != nil {
+		pr, err := f.problemFrom(ctx, st, st.res, st.beta)
+		if err != nil {
+			return nil, err
+		}
+		st.pr.r, st.pr.f, st.pr.r0, st.pr.n = pr.r, pr.f, pr.r0, pr.n
+		if sol := st.pr.solve(st.sel.lambdaAt(st.rho)); sol.ok {
+			st.eval.sol = sol
+			st.beta = sol.beta
+		}
+	}
+	return st, nil
+}
+
+// penaltyAt is βᵀS_λβ.
+func penaltyAt(pr *problem, lambda, beta []float64) float64 {
+	v := 0.0
+	for j, pen := range pr.pens {
+		v += lambda[j] * quadForm(pen.s, beta[pen.start:pen.start+pen.size])
+	}
+	return v
+}
+
+// problemFrom converts a pass into the working problem, switching to
+// Householder accumulation (and repeating the pass) when cross-products are
+// too ill-conditioned.
+func (f *fitter) problemFrom(ctx context.Context, st *pirlsState, res *passResult, beta []float64) (*problem, error) {
+	pr, ok, err := toProblem(res, st.d, st.z)
+	if err != nil {
+		return nil, err
+	}
+	if ok {
+		return pr, nil
+	}
+	f.log.Debug("cross-products ill-conditioned; switching to Householder accumulation")
+	f.mode = householder
+	res2, err := f.pass(ctx, st, beta, householder, nil, 1)
+	if err != nil {
+		return nil, err
+	}
+	f.progress("iteration", res2.n, math.NaN())
+	*res = *res2
+	pr, _, err = toProblem(res2, st.d, st.z)
+	return pr, err
+}
+
+// setupPenalties builds the constrained penalties Zᵀ S Z and the selector.
+func (f *fitter) setupPenalties(st *pirlsState, pr *problem) error {
+	d := st.d
+	pr.pens, pr.blocks = nil, nil
+	for ti, t := range d.terms {
+		if !t.penalised() {
+			continue
+		}
+		t.penStart = len(pr.pens)
+		bl := penaltyBlock{start: t.cstart, size: t.q}
+		for k, raw := range t.rawPens {
+			s := matTMul(t.z, matMul(raw, t.z, t.width, t.width, t.q), t.width, t.q, t.q)
+			for a := 0; a < t.q; a++ { // symmetrise
+				for b := a + 1; b < t.q; b++ {
+					v := (s[a*t.q+b] + s[b*t.q+a]) / 2
+					s[a*t.q+b], s[b*t.q+a] = v, v
+				}
+			}
+			fixed := 0.0
+			if len(t.spec.Smoothing) > 0 {
+				fixed = t.spec.Smoothing[min(k, len(t.spec.Smoothing)-1)]
+			}
+			pen, ok := newPenalty(ti, t.cstart, t.q, s, fixed)
+			if !ok {
+				return fmt.Errorf("term %q: its penalty matrix could not be decomposed", t.name)
+			}
+			bl.pens = append(bl.pens, len(pr.pens))
+			pr.pens = append(pr.pens, pen)
+		}
+		pr.blocks = append(pr.blocks, bl)
+	}
+	st.pr = pr
+	crit := remlUnknownScale
+	switch {
+	case f.m.spec.Selection == GCV && f.m.fam.FixedScale():
+		crit = ubreScore
+	case f.m.spec.Selection == GCV:
+		crit = gcvScore
+	case f.m.fam.FixedScale():
+		crit = remlKnownScale
+	}
+	sel := &selector{pr: pr, crit: crit, fixed: make([]float64, len(pr.pens))}
+	// Start each free λ where the penalty and the data weigh about the same
+	// on the term's coefficients: λ = tr(XᵀWX_block)/tr(S).
+	for j, pen := range pr.pens {
+		if pen.fixed > 0 {
+			sel.fixed[j] = pen.fixed
+			continue
+		}
+		trX, trS := 0.0, 0.0
+		for c := 0; c < pen.size; c++ {
+			col := pen.start + c
+			for r := 0; r <= col; r++ {
+				trX += pr.r[r*pr.p+col] * pr.r[r*pr.p+col]
+			}
+			trS += pen.s[c*pen.size+c]
+		}
+		lam := 1.0
+		if trS > 0 && trX > 0 {
+			lam = trX / trS
+		}
+		sel.fixed[j] = lam
+		sel.free = append(sel.free, j)
+		rho := math.Log(lam)
+		st.rho = append(st.rho, rho)
+		sel.lo = append(sel.lo, rho-25)
+		sel.hi = append(sel.hi, rho+25)
+	}
+	st.sel = sel
+	return nil
+}
