@@ -283,7 +283,7 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		}
 		st.relChg = math.Abs(pen-prevPen) / (math.Abs(pen) + 0.1)
 		st.beta, st.res = newBeta, res
-		if st.relChg < f.opt.Tolerance {
+		if st.relChg < f.opt.Tolerance && maxRelativeChange(prevBeta, newBeta) < coefTolerance {
 			st.conv = true
 			break
 		}
@@ -312,6 +312,20 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		}
 	}
 	return st, nil
+}
+
+// coefTolerance is the largest relative change of any coefficient at which
+// PIRLS may stop: the deviance is flat near its minimum, so a small change in
+// it alone does not pin down the coefficients.
+const coefTolerance = 1e-9
+
+// maxRelativeChange is max_i |a_i − b_i| / (|b_i| + 1e-8).
+func maxRelativeChange(a, b []float64) float64 {
+	worst := 0.0
+	for i := range a {
+		worst = math.Max(worst, math.Abs(a[i]-b[i])/(math.Abs(b[i])+1e-8))
+	}
+	return worst
 }
 
 // penaltyAt is βᵀS_λβ.

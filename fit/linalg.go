@@ -11,16 +11,16 @@ import (
 
 // qrInPlace overwrites the rows×cols row-major matrix a with its Householder
 // QR factorisation and returns the cols×cols upper-triangular factor R (a
-// fresh slice; rows ≥ cols is required).
+// fresh slice; when rows < cols, the rows beyond the first rows are zero).
 func qrInPlace(a []float64, rows, cols int) []float64 {
 	g := blas64.General{Rows: rows, Cols: cols, Stride: cols, Data: a}
-	tau := make([]float64, cols)
+	tau := make([]float64, min(rows, cols))
 	work := make([]float64, 1)
 	lapack64.Geqrf(g, tau, work, -1)
 	work = make([]float64, int(work[0]))
 	lapack64.Geqrf(g, tau, work, len(work))
 	r := make([]float64, cols*cols)
-	for i := 0; i < cols; i++ {
+	for i := 0; i < min(rows, cols); i++ {
 		for j := i; j < cols; j++ {
 			r[i*cols+j] = a[i*cols+j]
 		}

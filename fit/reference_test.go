@@ -19,6 +19,12 @@ const referenceDir = "../testdata/reference"
 // fitCase fits model file spec to data.csv in dir.
 func fitCase(t *testing.T, dir, specFile string) *fit.Document {
 	t.Helper()
+	return fitCaseWith(t, dir, specFile, fit.Options{})
+}
+
+// fitCaseWith is fitCase with options.
+func fitCaseWith(t *testing.T, dir, specFile string, opt fit.Options) *fit.Document {
+	t.Helper()
 	raw, err := os.ReadFile(filepath.Join(dir, specFile))
 	if err != nil {
 		t.Fatal(err)
@@ -31,7 +37,7 @@ func fitCase(t *testing.T, dir, specFile string) *fit.Document {
 	if err != nil {
 		t.Fatal(err)
 	}
-	doc, err := fit.Fit(context.Background(), spec, src, fit.Options{})
+	doc, err := fit.Fit(context.Background(), spec, src, opt)
 	if err != nil {
 		t.Fatalf("%s: %v", specFile, err)
 	}

@@ -302,7 +302,7 @@ func (p *specParser) terms(s *Spec, e yamlEntry) []TermSpec {
 		return nil
 	}
 	var out []TermSpec
-	var good []int              // indexes of the terms whose kind and columns are known
+	var good []int               // indexes of the terms whose kind and columns are known
 	read := map[*yaml.Node]int{} // term nodes read, so an alias is not read twice
 	for i, item := range n.Content {
 		if j, again := read[derefNode(item)]; again {
@@ -325,7 +325,7 @@ func (p *specParser) terms(s *Spec, e yamlEntry) []TermSpec {
 // and as the response, weights or offset. Only the good terms, those whose
 // kind and columns could be read, are checked.
 func (p *specParser) overlaps(s *Spec, terms []TermSpec, good []int) {
-	same := map[string]int{}                // term identity → first term
+	same := map[string]int{}               // term identity → first term
 	users := map[string]map[TermKind]int{} // column → first term of each kind using it
 	for _, i := range good {
 		t := terms[i]

@@ -161,6 +161,7 @@ var specErrorCases = []struct {
 	{"surface size three", specHead + "terms:\n  - surface: [a, b]\n    size: [4, 4, 4]\n", 5, "terms[0]", []string{"size must be a whole number or a list of two", "not a list"}},
 	{"surface size product", specHead + "terms:\n  - surface: [a, b]\n    size: [25, 21]\n", 5, "terms[0]", []string{"size [25, 21] gives 525 coefficients, more than 500"}},
 	{"duplicate term", specHead + "terms:\n  - curve: x\n  - curve: x\n", 5, "terms[1]", []string{"duplicate of terms[0] (curve x)"}},
+	{"alias term", specHead + "terms:\n  - &t {curve: x}\n  - *t\n", 5, "terms[1]", []string{"duplicate of terms[0] (an alias of the same term)"}},
 	{"duplicate surface", specHead + "terms:\n  - surface: [a, b]\n  - surface: [b, a]\n", 5, "terms[1]", []string{"duplicate of terms[0] (surface a,b)"}},
 	{"term on response", specHead + "terms:\n  - curve: y\n", 4, "terms[0]", []string{`curve "y" is the response column`}},
 	{"term on weights", specHead + "weights: w\nterms:\n  - linear: w\n", 5, "terms[0]", []string{`linear "w" is the weights column`}},
@@ -242,6 +243,33 @@ watch:
 	}
 	if n := strings.Count(err.Error(), "\n"); n != len(wantLines)-1 {
 		t.Errorf("Error() has %d line breaks, want one problem per line:\n%s", n, err)
+	}
+}
+
+// TestParseSpecAliasBomb checks that aliases cannot multiply the work: a
+// term written once and repeated by alias is read once.
+func TestParseSpecAliasBomb(t *testing.T) {
+	var b strings.Builder
+	b.WriteString(specHead + "big: &big {curve: x")
+	for i := range 2000 {
+		fmt.Fprintf(&b, ", k%d: 1", i)
+	}
+	b.WriteString("}\nterms: [")
+	for i := range 2000 {
+		if i > 0 {
+			b.WriteString(", ")
+		}
+		b.WriteString("*big")
+	}
+	b.WriteString("]\n")
+	_, err := ParseSpec([]byte(b.String()))
+	var se *SpecError
+	if !errors.As(err, &se) {
+		t.Fatalf("want a *SpecError, got %v", err)
+	}
+	// "big" is unknown, its 2000 keys once, then 1999 duplicates.
+	if n := len(se.Problems); n != 1+2000+1999 {
+		t.Errorf("%d problems, want %d", n, 1+2000+1999)
 	}
 }
 
