@@ -29,16 +29,16 @@ const (
 
 // passResult holds what one pass over the rows produced at the current β.
 type passResult struct {
-	mode    passMode
-	n       int
-	sumW    float64 // Σ prior weights
-	dev     float64 // Σ w d(y, μ)
-	pearson float64 // Σ w (y−μ)²/V(μ)
-	logLik  float64 // at φ = 1 for the families with a known scale; see finish
-	nullDev float64 // Σ w d(y, μ₀) for the null mean
-	invalid bool    // a mean left the family's range
-	maxEta  float64 // largest |η| (for separation checks)
-	boundary int    // rows with μ within 1e-9 of a boundary (binomial)
+	mode     passMode
+	n        int
+	sumW     float64 // Σ prior weights
+	dev      float64 // Σ w d(y, μ)
+	pearson  float64 // Σ w (y−μ)²/V(μ)
+	logLik   float64 // at φ = 1 for the families with a known scale; see finish
+	nullDev  float64 // Σ w d(y, μ₀) for the null mean
+	invalid  bool    // a mean left the family's range
+	maxEta   float64 // largest |η| (for separation checks)
+	boundary int     // rows with μ within 1e-9 of a boundary (binomial)
 
 	xtwx   []float64 // p×p, upper triangle (crossProducts)
 	xtwz   []float64

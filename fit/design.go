@@ -42,7 +42,7 @@ type termDesign struct {
 	levels  []string       // factor: sorted levels; the first is the reference
 	index   map[string]int // level → position in levels
 
-	cons     []float64   // raw constraint rows (nCons × width), before centring
+	cons     []float64 // raw constraint rows (nCons × width), before centring
 	nCons    int
 	rawPens  [][]float64 // raw penalties (width × width)
 	z        []float64   // width × q null-space basis (nil: identity on active)

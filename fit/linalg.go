@@ -142,4 +142,3 @@ func matTMul(a, b []float64, m, n, k int) []float64 {
 		blas64.General{Rows: n, Cols: k, Stride: k, Data: out})
 	return out
 }
-

@@ -48,8 +48,8 @@ func TestBSplinePartitionOfUnityAndDerivatives(t *testing.T) {
 
 // The curvature penalty of f(x) = x² on [0, 4] is ∫ 2² dx = 16. A natural
 // spline cannot be x², so use the raw B-spline basis: its coefficients for
-// x² follow from interpolation; instead check a cubic with known f''.
-// f(x) = x³ has f'' = 6x, ∫_0^4 36x² dx = 768 (exact calculus, common practice).
+// x² follow from interpolation; instead check a cubic with known f”.
+// f(x) = x³ has f” = 6x, ∫_0^4 36x² dx = 768 (exact calculus, common practice).
 func TestCurvaturePenaltyExact(t *testing.T) {
 	knots := []float64{0, 0, 0, 0, 1, 2.5, 3, 4, 4, 4, 4}
 	b, err := NewBSpline(knots, 4)

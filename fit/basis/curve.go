@@ -50,13 +50,13 @@ func (c *Curve) line(at, dx float64, vals []float64) int {
 // NewNaturalCubic returns the natural cubic regression spline with the
 // given distinct, increasing knots: a cubic spline with those knots whose
 // second derivative vanishes at the first and last knot. Its dimension is
-// len(knots); the penalty is ∫f''(x)² dx exactly, so with a knot at every
+// len(knots); the penalty is ∫f”(x)² dx exactly, so with a knot at every
 // distinct data value a penalised fit is the classical cubic smoothing
 // spline (Reinsch 1967; Green & Silverman 1994, ch. 2).
 //
 // The basis is represented with cubic B-splines on the knots (boundary knots
 // repeated four times, len(knots)+2 functions) and two constraint rows
-// f''(κ₁) = 0, f''(κ_K) = 0.
+// f”(κ₁) = 0, f”(κ_K) = 0.
 func NewNaturalCubic(knots []float64) (*Curve, error) {
 	if len(knots) < 3 {
 		return nil, fmt.Errorf("basis: a natural cubic spline needs at least 3 knots, got %d", len(knots))

@@ -10,9 +10,9 @@ import (
 // polynomials of degree 3.
 var gauss2 = [2]float64{-1 / math.Sqrt(3), 1 / math.Sqrt(3)}
 
-// CurvaturePenalty returns S with S_ab = ∫ B_a''(x) B_b''(x) dx over the
-// basis domain, so that aᵀSa = ∫ f''(x)² dx for f = Σ a_i B_i. For a cubic
-// basis, B'' is linear between knots, so the two-point Gauss–Legendre rule
+// CurvaturePenalty returns S with S_ab = ∫ B_a”(x) B_b”(x) dx over the
+// basis domain, so that aᵀSa = ∫ f”(x)² dx for f = Σ a_i B_i. For a cubic
+// basis, B” is linear between knots, so the two-point Gauss–Legendre rule
 // per knot interval is exact.
 func CurvaturePenalty(b *BSpline) *mat.SymDense {
 	n := b.Len()
