@@ -286,6 +286,10 @@ func (s *selector) minimise(rho0 []float64) (selectionResult, bool) {
 			break
 		}
 		step := newtonStep(ev.grad, ev.hess, m)
+		if tinyStep(step, rho, s.lo, s.hi) {
+			res.converged = true
+			break
+		}
 		improved := false
 		for half := 0; half < 30; half++ {
 			trial := make([]float64, m)
@@ -318,7 +322,21 @@ func (s *selector) minimise(rho0 []float64) (selectionResult, bool) {
 // converged reports whether each gradient component is negligible, counting
 // a component pushing against its bound as converged.
 func (s *selector) converged(ev evaluation, rho []float64) bool {
-	return s.gradientSmall(ev, rho, 1e-7)
+	return s.gradientSmall(ev, rho, 1e-9)
+}
+
+// tinyStep reports whether a Newton step moves every free log λ not held at
+// a bound by less than 1e-7: the minimum is located to that precision.
+func tinyStep(step, rho, lo, hi []float64) bool {
+	for a, d := range step {
+		if rho[a] >= hi[a] && d > 0 || rho[a] <= lo[a] && d < 0 {
+			continue
+		}
+		if math.Abs(d) > 1e-7 {
+			return false
+		}
+	}
+	return true
 }
 
 func (s *selector) gradientSmall(ev evaluation, rho []float64, tol float64) bool {

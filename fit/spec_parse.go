@@ -17,8 +17,8 @@ import (
 )
 
 // MaxBasisSize is the most coefficients one curve or surface may have. The
-// model matrix gets a column per coefficient, so fitting time grows with its
-// cube and memory with its square.
+// model matrix gets a column per coefficient and the fit factorises square
+// matrices of that order, so fitting time and memory grow fast with it.
 const MaxBasisSize = 500
 
 // Default basis sizes, per curve and per surface margin.
@@ -65,11 +65,15 @@ func (b Basis) MinSize() int {
 //     applies to both margins.
 //
 // The result holds one Size entry per column of a curve or surface and, when
-// smoothing is given, one Smoothing entry per penalty. A column may appear
-// in only one term, and never as the response, weights or offset. The watch
-// section is checked (against baseline|previous, practical_shift > 0,
-// 0 < level < 1, deviance_increase > 0, confirm_runs ≥ 1) and kept in
-// Spec.Watch as string, float64 and int values.
+// smoothing is given, one Smoothing entry per penalty. No term repeats
+// another; no term uses the response, weights or offset column; a column is
+// never both a curve and a linear term, nor a factor and any other term. A
+// curve or linear term may share a column with a surface. The watch section
+// is checked (against baseline|previous, practical_shift > 0, 0 < level < 1,
+// deviance_increase > 0, confirm_runs ≥ 1) and kept in Spec.Watch as string,
+// float64 and int values.
+//
+// Terms are counted from 0 in error paths ("terms[2]" is the third term).
 func ParseSpec(data []byte) (*Spec, error) {
 	p := &specParser{}
 	root := p.document(data)
@@ -120,7 +124,7 @@ func (p *specParser) document(data []byte) *yaml.Node {
 			continue // an empty document after a trailing "---"
 		}
 		p.add(extra.Line, "", "a second YAML document starts here: a spec file holds one model; put each model in its own file")
-		return nil
+		break
 	}
 	if len(doc.Content) == 0 {
 		p.add(1, "", "the spec is empty: it needs at least name, response and terms")
