@@ -22,14 +22,12 @@ const (
 	// block by block (Wood, Goude & Shaw 2015, JRSS-C 64(1), §2): slower,
 	// but never squares the condition number.
 	householder
-	// evaluateOnly computes deviance and fit statistics without
-	// accumulating.
-	evaluateOnly
 )
 
 // passResult holds what one pass over the rows produced at the current β.
 type passResult struct {
 	mode     passMode
+	zShift   float64
 	n        int
 	sumW     float64 // Σ prior weights
 	dev      float64 // Σ w d(y, μ)
@@ -58,6 +56,9 @@ type passState struct {
 	mode    passMode
 	workers int
 	phi     float64 // scale at which the log-likelihood is evaluated
+	// zShift is subtracted from the working response so that Σ W z² stays
+	// close to the residual sum of squares (no cancellation in r0).
+	zShift float64
 }
 
 // logitClamp bounds η for the logit link so that μ stays inside (0, 1) in
@@ -67,7 +68,7 @@ const logitClamp = 30
 // run makes one pass over the source.
 func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 	p := ps.d.p
-	res := &passResult{mode: ps.mode, colSum: make([]float64, p)}
+	res := &passResult{mode: ps.mode, zShift: ps.zShift, colSum: make([]float64, p)}
 	workers := max(1, ps.workers)
 	parts := make([]*passResult, workers)
 	for i := range parts {
@@ -236,7 +237,7 @@ func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val
 			continue
 		}
 		ww[i] = wwi
-		wz[i] = e - oi + (yi-mu)/d
+		wz[i] = e - oi + (yi-mu)/d - ps.zShift
 	}
 }
 
@@ -328,7 +329,7 @@ func defaultWorkers() int { return min(runtime.GOMAXPROCS(0), 4) }
 // repeats the pass with Householder updates).
 func toProblem(res *passResult, d *design, z []float64) (*problem, bool, error) {
 	p, pc := d.p, d.pc
-	pr := &problem{p: pc, n: float64(res.n)}
+	pr := &problem{p: pc, n: float64(res.n), shift: res.zShift}
 	switch res.mode {
 	case crossProducts:
 		full := make([]float64, p*p)

@@ -27,7 +27,8 @@ func (f *fitter) nullMean(ctx context.Context, sum *summary) (func(float64) floa
 		if res.xtwx[0] <= 0 {
 			return nil, fmt.Errorf("the intercept-only model has no information")
 		}
-		b := res.xtwz[0] / res.xtwx[0]
+		f.nullDev = res.dev // at the previous β₀: the null deviance once converged
+		b := res.xtwz[0]/res.xtwx[0] + res.zShift
 		if beta != nil && math.Abs(b-beta[0]) <= 1e-12*(1+math.Abs(b)) {
 			beta = []float64{b}
 			break
@@ -38,31 +39,28 @@ func (f *fitter) nullMean(ctx context.Context, sum *summary) (func(float64) floa
 	return func(off float64) float64 { return link.Inverse(b0 + off) }, nil
 }
 
-// document evaluates the final fit and assembles the fit document.
+// finalStats returns the deviance, Pearson statistic and log-likelihood at
+// the final β. For the gaussian family with identity link one solve is the
+// fit and these follow from its residual sum of squares (computed on the
+// centred working response, so without cancellation); otherwise they come
+// from the pass that evaluated the last accepted step.
+func (f *fitter) finalStats(st *pirlsState, sum *summary) *passResult {
+	if st.res != nil {
+		return st.res
+	}
+	rss := st.eval.sol.rss
+	n := float64(sum.rowsUsed)
+	phi := rss / n
+	res := &passResult{n: sum.rowsUsed, sumW: sum.sumW, dev: rss, pearson: rss}
+	// log L = −½ Σ [w(y−μ)²/φ + log(2πφ/w)] at φ = D/n.
+	res.logLik = -0.5 * (rss/phi + n*math.Log(2*math.Pi*phi) - sum.sumLogW)
+	return res
+}
+
+// document assembles the fit document.
 func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*Document, error) {
 	m, d := f.m, st.d
-	nullMu, err := f.nullMean(ctx, sum)
-	if err != nil {
-		return nil, err
-	}
-	// Scale for the log-likelihood: the maximum-likelihood estimate D/n for
-	// gaussian and gamma (as in most GLM software), 1 otherwise.
-	phiLL := 1.0
-	if !m.fam.FixedScale() {
-		prevDev := st.eval.sol.rss
-		if st.res != nil {
-			prevDev = st.res.dev
-		}
-		phiLL = prevDev / float64(sum.rowsUsed)
-		if m.fam.Name() == "gaussian" && m.spec.Weights != "" {
-			phiLL = prevDev / float64(sum.rowsUsed)
-		}
-	}
-	res, err := f.pass(ctx, st, st.beta, evaluateOnly, nullMu, phiLL)
-	if err != nil {
-		return nil, err
-	}
-	f.progress("final", res.n, res.dev)
+	res := f.finalStats(st, sum)
 	if res.invalid {
 		return nil, fmt.Errorf("the final coefficients give means outside the %s family's range", m.fam.Name())
 	}
@@ -112,7 +110,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 
 	doc := &Document{
 		Format: FormatVersion, Model: m.spec.Name, Family: m.spec.Family, Link: m.spec.Link,
-		N: res.n, Deviance: res.dev, NullDeviance: res.nullDev,
+		N: res.n, Deviance: res.dev, NullDeviance: f.nullDev,
 		Scale: scale, ScaleEstimated: !m.fam.FixedScale(), EDFTotal: edf, ResidualDF: n - edf,
 		Intercept:    Estimate{Estimate: beta[0], SE: se(0)},
 		Coefficients: beta, Covariance: cov, Spec: m.spec,
@@ -121,17 +119,21 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	if len(doc.Data.Dropped) == 0 {
 		doc.Data.Dropped = nil
 	}
-	if res.nullDev > 0 {
-		doc.DevianceExplained = math.Max(0, math.Min(1, (res.nullDev-res.dev)/res.nullDev))
+	if f.nullDev > 0 {
+		doc.DevianceExplained = math.Max(0, math.Min(1, (f.nullDev-res.dev)/f.nullDev))
 	} else {
 		f.warn = append(f.warn, "the response is constant, so there is no deviance to explain")
 	}
-	doc.LogLikelihood = res.logLik
 	k := edf
 	if !m.fam.FixedScale() {
 		k++
 	}
-	doc.AIC = -2*res.logLik + 2*k
+	if finite(res.logLik) {
+		doc.LogLikelihood = res.logLik
+		doc.AIC = -2*res.logLik + 2*k
+	} else {
+		f.warn = append(f.warn, "the fit is exact (zero deviance), so the log-likelihood and AIC are undefined and reported as 0")
+	}
 	doc.Criterion = Criterion{Name: "none", Value: 0, Converged: true}
 	if len(st.sel.free) > 0 {
 		doc.Criterion = Criterion{Name: st.sel.crit.String(), Value: st.eval.v, Iterations: st.selRes.iterations, Converged: st.selRes.converged}

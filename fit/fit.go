@@ -85,6 +85,14 @@ type fitter struct {
 	passes int
 	mode   passMode
 	warn   []string
+	// zShift centres the working response (see passState.zShift).
+	zShift float64
+	// phi is the scale at which passes evaluate the log-likelihood: the
+	// latest D/n for gaussian and gamma, 1 otherwise.
+	phi float64
+	// nullDev is the null deviance, from the first accumulation pass or,
+	// with an offset, from its own intercept-only fit.
+	nullDev float64
 }
 
 func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
@@ -200,7 +208,7 @@ func (f *fitter) run(ctx context.Context) (*Document, error) {
 
 // pass runs one pass at constrained coefficients beta (nil: starting means).
 func (f *fitter) pass(ctx context.Context, st *pirlsState, beta []float64, mode passMode, nullMu func(float64) float64, phi float64) (*passResult, error) {
-	ps := &passState{m: f.m, d: st.d, fam: f.m.fam, link: f.m.link, mode: mode, workers: f.opt.Workers, nullMu: nullMu, phi: phi}
+	ps := &passState{m: f.m, d: st.d, fam: f.m.fam, link: f.m.link, mode: mode, workers: f.opt.Workers, nullMu: nullMu, phi: phi, zShift: f.zShift}
 	if beta != nil {
 		ps.betaRaw = matMul(st.z, beta, st.d.p, st.d.pc, 1)
 	}
@@ -213,9 +221,22 @@ func (f *fitter) pass(ctx context.Context, st *pirlsState, beta []float64, mode 
 func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsState, error) {
 	m := f.m
 	st := &pirlsState{d: d}
-	res, err := f.pass(ctx, st, nil, f.mode, nil, 1)
+	nullMu, err := f.nullMean(ctx, sum)
 	if err != nil {
 		return nil, err
+	}
+	f.zShift = m.link.Link(sum.yMean)
+	f.phi = 1
+	var firstNull func(float64) float64
+	if m.spec.Offset == "" {
+		firstNull = nullMu
+	}
+	res, err := f.pass(ctx, st, nil, f.mode, firstNull, 1)
+	if err != nil {
+		return nil, err
+	}
+	if firstNull != nil {
+		f.nullDev = res.nullDev
 	}
 	f.progress("iteration", res.n, math.NaN())
 	if err := d.centre(res.colSum); err != nil {
@@ -260,7 +281,7 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		// (at the λ that produced β) rises or the means are invalid.
 		var pen float64
 		for half := 0; ; half++ {
-			res, err = f.pass(ctx, st, newBeta, f.mode, nil, 1)
+			res, err = f.pass(ctx, st, newBeta, f.mode, nil, f.phi)
 			if err != nil {
 				return nil, err
 			}
@@ -283,7 +304,10 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		}
 		st.relChg = math.Abs(pen-prevPen) / (math.Abs(pen) + 0.1)
 		st.beta, st.res = newBeta, res
-		if st.relChg < f.opt.Tolerance && maxRelativeChange(prevBeta, newBeta) < coefTolerance {
+		if !m.fam.FixedScale() {
+			f.phi = res.dev / float64(res.n)
+		}
+		if st.relChg < f.opt.Tolerance && coefficientsSettled(prevBeta, newBeta, st.eval.sol.hinv) {
 			st.conv = true
 			break
 		}
@@ -292,40 +316,44 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		if err != nil {
 			return nil, err
 		}
-		st.pr.r, st.pr.f, st.pr.r0, st.pr.n = pr.r, pr.f, pr.r0, pr.n
+		st.pr.r, st.pr.f, st.pr.r0, st.pr.n, st.pr.shift = pr.r, pr.f, pr.r0, pr.n, pr.shift
 	}
 	if st.iter > f.opt.MaxIterations {
 		st.iter = f.opt.MaxIterations
 	}
-	// H and the EDF come from the working model at the last accepted β:
-	// re-solve it at the final λ so that β, H⁻¹ and the EDF belong together
-	// (the document's statistics are then evaluated at this β).
+	// H and the EDF come from the working model at the last accepted β
+	// (the pass that evaluated the deviance there also formed it): re-solve
+	// it at the final λ for H⁻¹. β itself stays the accepted one, whose
+	// deviance the document reports; the re-solve moves it by less than the
+	// convergence tolerance.
 	if !linear && st.res != nil {
 		pr, err := f.problemFrom(ctx, st, st.res, st.beta)
 		if err != nil {
 			return nil, err
 		}
-		st.pr.r, st.pr.f, st.pr.r0, st.pr.n = pr.r, pr.f, pr.r0, pr.n
+		st.pr.r, st.pr.f, st.pr.r0, st.pr.n, st.pr.shift = pr.r, pr.f, pr.r0, pr.n, pr.shift
 		if sol := st.pr.solve(st.sel.lambdaAt(st.rho)); sol.ok {
+			sol.beta = st.beta
 			st.eval.sol = sol
-			st.beta = sol.beta
 		}
 	}
 	return st, nil
 }
 
-// coefTolerance is the largest relative change of any coefficient at which
-// PIRLS may stop: the deviance is flat near its minimum, so a small change in
-// it alone does not pin down the coefficients.
-const coefTolerance = 1e-9
-
-// maxRelativeChange is max_i |a_i − b_i| / (|b_i| + 1e-8).
-func maxRelativeChange(a, b []float64) float64 {
-	worst := 0.0
-	for i := range a {
-		worst = math.Max(worst, math.Abs(a[i]-b[i])/(math.Abs(b[i])+1e-8))
+// coefficientsSettled reports whether no coefficient moved by more than
+// 1e-9 of its size plus 1e-12 of its (unscaled) posterior standard
+// deviation √(H⁻¹)_ii: the deviance is flat near its minimum, so a small
+// change in it alone does not pin the coefficients down, and a coefficient
+// that is exactly zero only jitters in its last bits.
+func coefficientsSettled(prev, next, hinv []float64) bool {
+	p := len(next)
+	for i := range next {
+		tol := 1e-9*math.Abs(next[i]) + 1e-12*math.Sqrt(math.Abs(hinv[i*p+i]))
+		if math.Abs(next[i]-prev[i]) > tol {
+			return false
+		}
 	}
-	return worst
+	return true
 }
 
 // penaltyAt is βᵀS_λβ.

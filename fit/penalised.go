@@ -57,6 +57,7 @@ type problem struct {
 	f      []float64
 	r0     float64
 	n      float64 // number of observations
+	shift  float64 // added to the intercept of every solution (see passState.zShift)
 	pens   []penalty
 	blocks []penaltyBlock
 }
@@ -139,6 +140,7 @@ func (pr *problem) solve(lambda []float64) solution {
 	for j, pen := range pr.pens {
 		sol.bsb[j] = quadForm(pen.s, beta[pen.start:pen.start+pen.size])
 	}
+	beta[0] += pr.shift // the intercept column is unpenalised
 	return sol
 }
 

@@ -82,9 +82,12 @@ func (s *selector) evaluate(rho []float64, derivs bool) (evaluation, bool) {
 		dp := sol.rss + sol.penaltyValue()
 		nu := pr.n - float64(pr.nullSpaceDim())
 		if s.crit == remlUnknownScale {
-			if dp <= 0 || nu <= 0 {
+			if nu <= 0 {
 				return evaluation{}, false
 			}
+			// A perfect fit (a constant response) has D_p = 0; keep log D_p
+			// finite so the search can proceed (every term is then flat).
+			dp = math.Max(dp, 1e-300)
 			ev.v = nu*math.Log(dp) + sol.logDetH - ld
 		} else {
 			ev.v = dp + sol.logDetH - ld

@@ -71,6 +71,7 @@ type summary struct {
 	rowsRead int
 	rowsUsed int
 	sumW     float64
+	sumLogW  float64 // Σ log w over rows with w > 0
 	// dropped counts rows dropped because a column was missing (first
 	// missing column of the row).
 	dropped map[string]int
@@ -198,6 +199,9 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 			}
 			_ = off
 			s.sumW += wi
+			if wi > 0 {
+				s.sumLogW += math.Log(wi)
+			}
 			sumWY += wi * y[r]
 			for name, st := range s.numeric {
 				st.add(b.Numeric[name][r], rng)

@@ -1,0 +1,131 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"os"
+
+	"github.com/curvewatch/curvewatch/fit"
+	"github.com/curvewatch/curvewatch/fit/csvsource"
+)
+
+var fitHelp = help{
+	title: "fit a model spec to the rows of a CSV file",
+	usage: "curvewatch fit --data rows.csv --model model.yaml --out fit.json [flags]",
+	about: `Reads the model spec (YAML: the response, its family and link, and the
+terms: curves, surfaces, linear and factor terms), then fits it to every row
+of the CSV file, choosing how smooth each curve is unless the spec fixes it.
+Rows with a missing value in a column the model uses are left out and
+counted. The fit document records the fit and everything 'curvewatch
+predict' and 'curvewatch compare' need later.`,
+	example: "curvewatch fit --data sonde07.csv --model sonde07.yaml --out sonde07-fit.json",
+	writes: []item{
+		{"--out", "the fit document, as indented JSON. It is written to a temporary file beside it and then renamed, so the file is never left half written."},
+		{"stdout", "a summary: the rows used, how much deviance the model explains, and each term, with a small drawing of every curve's shape."},
+		{"stderr", "progress while a long fit runs, a note naming the file written, and errors."},
+	},
+	exits: []item{
+		{"0", "the fit converged and the document was written"},
+		{"1", "an error: the spec or the data could not be read or do not match, or the fit failed. A fit that did not converge still writes its document, marked \"converged\": false, and exits 1."},
+		{"2", "the command line was wrong (a missing or unknown flag)"},
+	},
+}
+
+func runFit(ctx context.Context, e *env, args []string) error {
+	var data, model, out string
+	var quiet bool
+	var maxIter int
+	fl := newFlags("fit", fitHelp)
+	fl.String(&data, "data", "FILE", "the CSV file of rows to fit; its first line names the columns")
+	fl.String(&model, "model", "FILE", "the model spec (YAML) naming the response, family and terms")
+	fl.String(&out, "out", "FILE", "where to write the fit document (JSON); an existing file is replaced")
+	fl.Int(&maxIter, "max-iterations", "N", 100, "give up after this many fitting iterations (families other than gaussian with identity link iterate; the document is then marked unconverged)")
+	fl.Bool(&quiet, "quiet", "write no progress or notices to stderr (the summary still goes to stdout; errors are still reported)")
+	if done, err := fl.parse(e, args); done || err != nil {
+		return err
+	}
+	for _, r := range []struct{ value, name, what string }{
+		{data, "data", "the CSV file of rows to fit (first line: column names)"},
+		{model, "model", "the model spec (YAML) saying what to fit"},
+		{out, "out", "the file to write the fit document (JSON) to"},
+	} {
+		if err := fl.require(r.value, r.name, r.what); err != nil {
+			return err
+		}
+	}
+	if maxIter < 1 {
+		return fl.usageError("--max-iterations must be at least 1, not %d", maxIter)
+	}
+	log := fl.logger(e)
+	if err := checkOutput(out, data, model); err != nil {
+		return err
+	}
+
+	text, err := os.ReadFile(model)
+	if err != nil {
+		return fmt.Errorf("cannot read the model spec: %w", err)
+	}
+	spec, err := fit.ParseSpec(text)
+	if err != nil {
+		return specProblems(err, model, fmt.Sprintf("the model spec %s has problems; fix them and run again:", model))
+	}
+	src, err := csvsource.Open(data)
+	if err != nil {
+		return fmt.Errorf("cannot read the data: %w", err)
+	}
+	if err := spec.CheckColumns(src.Columns()); err != nil {
+		return specProblems(err, model, fmt.Sprintf("the model spec %s uses columns that %s lacks:", model, data))
+	}
+	log.Debug("fitting", "model", spec.Name, "data", data, "spec", model, "columns", len(src.Columns()))
+
+	prog := newProgress(e.stderr, quiet)
+	iterations := 0
+	opt := fit.Options{
+		MaxIterations: maxIter,
+		Logger:        log,
+		Progress: func(p fit.Progress) {
+			if p.Stage == "iteration" {
+				iterations++
+			}
+			prog.show(fitProgressLine(p, prog), iterations > 2)
+		},
+	}
+	doc, err := fit.Fit(ctx, spec, src, opt)
+	if doc != nil {
+		prog.done(fmt.Sprintf("fit: %d passes over %d rows in %s", doc.Convergence.Passes, doc.Data.RowsRead, seconds(prog.elapsed())))
+	} else {
+		prog.done(fmt.Sprintf("fit: stopped after %s", seconds(prog.elapsed())))
+	}
+	notConverged := errors.Is(err, fit.ErrNotConverged) && doc != nil
+	if err != nil && !notConverged {
+		if ctx.Err() != nil {
+			return fmt.Errorf("interrupted; %s was not written", out)
+		}
+		return inFile(err, data)
+	}
+	if werr := writeDocument(out, doc); werr != nil {
+		return werr
+	}
+	log.Debug("fit written", "out", out, "seconds", prog.elapsed().Seconds())
+	if !quiet {
+		fmt.Fprintf(e.stderr, "fit: wrote %s\n", out)
+	}
+	if err := writeSummary(e.stdout, doc); err != nil {
+		return err
+	}
+	if notConverged {
+		return fmt.Errorf("%w; %s was written but is marked \"converged\": false, and predict and compare refuse it. Allow more iterations (--max-iterations), or check that the family and link suit the response", err, out)
+	}
+	return nil
+}
+
+// fitProgressLine describes one finished pass over the rows.
+func fitProgressLine(p fit.Progress, prog *progress) string {
+	s := fmt.Sprintf("fit: pass %d (%s) over %d rows", p.Pass, p.Stage, p.Rows)
+	if !math.IsNaN(p.Deviance) {
+		s += fmt.Sprintf(", deviance %.6g", p.Deviance)
+	}
+	return s + ", " + seconds(prog.elapsed())
+}

@@ -1,0 +1,216 @@
+package main
+
+import (
+	"cmp"
+	"fmt"
+	"io"
+	"maps"
+	"slices"
+	"strconv"
+	"strings"
+
+	"github.com/curvewatch/curvewatch/fit"
+)
+
+// writeSummary writes the human summary of a fit: the model as a whole,
+// then each term on the link scale, then the engine's warnings. It holds no
+// timings or paths, so the same fit always gives the same text.
+func writeSummary(w io.Writer, doc *fit.Document) error {
+	var b strings.Builder
+	writeOverall(&b, doc)
+	b.WriteString("\n")
+	writeTerms(&b, doc)
+	for _, msg := range doc.Warnings {
+		b.WriteString("\nwarning: " + msg)
+	}
+	if len(doc.Warnings) > 0 {
+		b.WriteString("\n")
+	}
+	_, err := io.WriteString(w, b.String())
+	return err
+}
+
+// writeOverall writes the model-wide figures, one labelled row each.
+func writeOverall(b *strings.Builder, doc *fit.Document) {
+	fmt.Fprintf(b, "model %s\n", doc.Model)
+	conv := doc.Convergence
+	if !conv.Converged {
+		fmt.Fprintf(b, "  NOT CONVERGED: the fit stopped after %s with the deviance still changing; do not use it\n", plural(conv.Iterations, "iteration", "iterations"))
+	}
+	row := func(label, format string, args ...any) {
+		fmt.Fprintf(b, "  %-11s %s\n", label, fmt.Sprintf(format, args...))
+	}
+	response := ""
+	if doc.Spec != nil {
+		response = doc.Spec.Response + " · "
+	}
+	row("response", "%s%s family · %s link", response, doc.Family, doc.Link)
+	rows := fmt.Sprintf("%d used of %d read", doc.Data.RowsUsed, doc.Data.RowsRead)
+	if dropped := doc.Data.RowsRead - doc.Data.RowsUsed; dropped > 0 {
+		rows += fmt.Sprintf(" · %d dropped for a missing value (%s)", dropped, droppedCounts(doc.Data.Dropped))
+	}
+	row("rows", "%s", rows)
+	row("explained", "%.1f%% of the deviance", 100*doc.DevianceExplained)
+	if doc.ScaleEstimated {
+		row("scale", "%.4g, estimated from the residuals", doc.Scale)
+	}
+	row("edf", "%.2f in total, for %s", doc.EDFTotal, plural(len(doc.Coefficients), "coefficient", "coefficients"))
+	row("aic", "%.1f", doc.AIC)
+	row("smoothing", "%s", criterionText(doc))
+	passes := plural(conv.Passes, "pass", "passes") + " over the rows"
+	if conv.Converged {
+		row("converged", "yes · %s · %s", plural(conv.Iterations, "iteration", "iterations"), passes)
+	} else {
+		row("converged", "NO · stopped after %s (relative change %.3g) · %s", plural(conv.Iterations, "iteration", "iterations"), conv.RelativeChange, passes)
+	}
+}
+
+// droppedCounts lists dropped-row counts by column, largest first.
+func droppedCounts(dropped map[string]int) string {
+	cols := slices.SortedFunc(maps.Keys(dropped), func(a, b string) int {
+		return cmp.Or(cmp.Compare(dropped[b], dropped[a]), cmp.Compare(a, b))
+	})
+	parts := make([]string, len(cols))
+	for i, c := range cols {
+		parts[i] = fmt.Sprintf("%s %d", c, dropped[c])
+	}
+	return strings.Join(parts, ", ")
+}
+
+// criterionText says how the smoothing strengths were found.
+func criterionText(doc *fit.Document) string {
+	c := doc.Criterion
+	if c.Name == "none" || c.Name == "" {
+		for _, t := range doc.Terms {
+			if t.Kind == fit.Curve || t.Kind == fit.Surface {
+				return "none chosen: the spec fixes every smoothing strength"
+			}
+		}
+		return "none needed: the model has no curves or surfaces"
+	}
+	s := fmt.Sprintf("strengths chosen by %s · score %.6g · %s", c.Name, c.Value, plural(c.Iterations, "search step", "search steps"))
+	if !c.Converged {
+		s += " (stopped early)"
+	}
+	return s
+}
+
+// termLayout aligns the term rows: kind, then name, then the figures.
+type termLayout struct {
+	b    *strings.Builder
+	name int // width of the name column
+}
+
+const kindWidth = 9 // "intercept"
+
+func (l termLayout) row(kind, name, text string) {
+	fmt.Fprintf(l.b, "  %-*s %-*s  %s\n", kindWidth, kind, l.name, name, text)
+}
+
+// more continues a term on the next line, under its figures.
+func (l termLayout) more(text string) { l.row("", "", text) }
+
+func writeTerms(b *strings.Builder, doc *fit.Document) {
+	fmt.Fprintf(b, "terms on the link scale (%s), each ± one standard error\n", doc.Link)
+	l := termLayout{b: b, name: 10}
+	for _, t := range doc.Terms {
+		l.name = max(l.name, len(termName(t)))
+		for lv := range t.Levels {
+			l.name = max(l.name, len(lv)+2)
+		}
+	}
+	l.row("intercept", "", plusMinus(doc.Intercept.Estimate, doc.Intercept.SE, false)+"  (reference levels, curves at their mean, linear columns at 0)")
+	for _, t := range doc.Terms {
+		switch t.Kind {
+		case fit.Curve:
+			writeCurve(l, t)
+		case fit.Surface:
+			writeSurface(l, t)
+		case fit.Linear:
+			if t.Estimate != nil && t.SE != nil {
+				l.row("linear", t.Name, plusMinus(*t.Estimate, *t.SE, true)+" per unit of "+t.Columns[0])
+			} else {
+				l.row("linear", t.Name, "no estimate")
+			}
+		case fit.Factor:
+			writeFactor(l, t)
+		default:
+			l.row(string(t.Kind), t.Name, "")
+		}
+		if len(t.Aliased) > 0 {
+			l.more("aliased, fixed at zero: " + strings.Join(t.Aliased, ", "))
+		}
+	}
+}
+
+func termName(t fit.TermResult) string {
+	if t.Kind == fit.Surface && len(t.Columns) == 2 {
+		return t.Columns[0] + " × " + t.Columns[1]
+	}
+	return t.Name
+}
+
+// smoothText gives a curve's or surface's EDF and smoothing strengths.
+func smoothText(t fit.TermResult) string {
+	word := "strength"
+	if len(t.Smoothing) > 1 {
+		word = "strengths"
+	}
+	s := fmt.Sprintf("edf %.2f · %s %s", t.EDF, word, strengths(t.Smoothing))
+	if t.SmoothingFixed {
+		s += " (fixed)"
+	}
+	return s
+}
+
+func writeCurve(l termLayout, t fit.TermResult) {
+	l.row("curve", t.Name, smoothText(t))
+	if t.Grid == nil || len(t.Grid.Fit) == 0 {
+		return
+	}
+	lo, hi := minMax(t.Grid.Fit)
+	xlo, xhi := minMax(t.Grid.X)
+	l.more(fmt.Sprintf("%s  %s across %s %s", sparkline(t.Grid.Fit, sparkWidth), span(lo, hi, true), t.Columns[0], span(xlo, xhi, false)))
+}
+
+func writeSurface(l termLayout, t fit.TermResult) {
+	l.row("surface", termName(t), smoothText(t))
+	g := t.SurfaceGrid
+	if g == nil || len(g.Fit) == 0 || len(t.Columns) != 2 {
+		return
+	}
+	var all []float64
+	for _, r := range g.Fit {
+		all = append(all, r...)
+	}
+	lo, hi := minMax(all)
+	x1lo, x1hi := minMax(g.X1)
+	x2lo, x2hi := minMax(g.X2)
+	l.more(fmt.Sprintf("%s across %s %s and %s %s", span(lo, hi, true),
+		t.Columns[0], span(x1lo, x1hi, false), t.Columns[1], span(x2lo, x2hi, false)))
+}
+
+func writeFactor(l termLayout, t fit.TermResult) {
+	l.row("factor", t.Name, "levels compared with "+t.Reference)
+	for _, lv := range levelOrder(t.Levels) {
+		e := t.Levels[lv]
+		l.row("", "  "+lv, plusMinus(e.Estimate, e.SE, true))
+	}
+}
+
+// levelOrder sorts factor levels as the engine codes them: by number when
+// every level is a number, otherwise as text.
+func levelOrder(levels map[string]fit.Estimate) []string {
+	names := slices.Sorted(maps.Keys(levels))
+	for _, n := range names {
+		if _, err := strconv.ParseFloat(n, 64); err != nil {
+			return names
+		}
+	}
+	slices.SortStableFunc(names, func(a, b string) int {
+		x, _ := strconv.ParseFloat(a, 64)
+		y, _ := strconv.ParseFloat(b, 64)
+		return cmp.Compare(x, y)
+	})
+	return names
+}

@@ -1,0 +1,66 @@
+package fit_test
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/curvewatch/curvewatch/fit"
+)
+
+// benchTable makes n rows of the benchmark model's covariates: four smooth
+// effects and two linear ones.
+func benchTable(n int, family string) *fit.Table {
+	rng := rand.New(rand.NewPCG(42, uint64(n)))
+	cols := map[string][]float64{}
+	for _, c := range []string{"x1", "x2", "x3", "x4", "z1", "z2", "y"} {
+		cols[c] = make([]float64, n)
+	}
+	for i := 0; i < n; i++ {
+		x1, x2, x3, x4 := rng.Float64(), rng.Float64(), rng.Float64(), rng.Float64()
+		z1, z2 := rng.NormFloat64(), rng.NormFloat64()
+		eta := 0.3 + 0.5*math.Sin(2*math.Pi*x1) + 0.4*x2*x2 + 0.3*math.Exp(-3*x3) + 0.2*math.Cos(3*x4) + 0.1*z1 - 0.1*z2
+		cols["x1"][i], cols["x2"][i], cols["x3"][i], cols["x4"][i] = x1, x2, x3, x4
+		cols["z1"][i], cols["z2"][i] = z1, z2
+		if family == "gaussian" {
+			cols["y"][i] = eta + 0.5*rng.NormFloat64()
+		} else {
+			cols["y"][i] = float64(poissonDraw(rng, math.Exp(eta)))
+		}
+	}
+	return &fit.Table{Numeric: cols}
+}
+
+// benchSpec is the benchmark model: 4 curves of size 10 and 2 linear terms.
+func benchSpec(family string) *fit.Spec {
+	link := fit.Identity
+	if family == "poisson" {
+		link = fit.Log
+	}
+	return curveSpec(fit.Family(family), link, curve("x1", 10), curve("x2", 10), curve("x3", 10), curve("x4", 10), linear("z1"), linear("z2"))
+}
+
+// BenchmarkFit times a REML fit of the benchmark model. bench/run.sh
+// compares it with numpy forming XᵀX of a matrix of the same size.
+func BenchmarkFit(b *testing.B) {
+	for _, family := range []string{"gaussian", "poisson"} {
+		for _, n := range []int{10_000, 100_000, 1_000_000} {
+			b.Run(fmt.Sprintf("%s/n=%d", family, n), func(b *testing.B) {
+				data := benchTable(n, family)
+				spec := benchSpec(family)
+				b.ReportAllocs()
+				b.ResetTimer()
+				for b.Loop() {
+					doc, err := fit.Fit(context.Background(), spec, data, fit.Options{})
+					if err != nil {
+						b.Fatal(err)
+					}
+					b.ReportMetric(float64(len(doc.Coefficients)), "coefficients")
+					b.ReportMetric(float64(doc.Convergence.Passes), "passes")
+				}
+			})
+		}
+	}
+}
