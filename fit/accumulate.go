@@ -84,6 +84,7 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 	}
 	var keep []int
 	stride := ps.d.nnz
+	runs := ps.d.runs()
 	var idx []int32
 	var val []float64
 	var eta, wz, ww []float64
@@ -100,27 +101,34 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 			eta, wz, ww = make([]float64, k), make([]float64, k), make([]float64, k)
 		}
 		idx, val = idx[:k*stride], val[:k*stride]
-		if err := ps.d.rows(b, keep, idx, val); err != nil {
-			return err
-		}
-		// Per-row statistics, split across workers.
+		// Model matrix rows and per-row statistics, split across workers.
 		chunk := (k + workers - 1) / workers
 		var wg sync.WaitGroup
+		errs := make([]error, workers)
 		for w := 0; w < workers; w++ {
 			lo, hi := w*chunk, min(k, (w+1)*chunk)
 			if lo >= hi {
 				continue
 			}
 			wg.Add(1)
-			go func(part *passResult, lo, hi int) {
+			go func(w int, part *passResult, lo, hi int) {
 				defer wg.Done()
+				if err := ps.d.rows(b, keep[lo:hi], idx[lo*stride:hi*stride], val[lo*stride:hi*stride]); err != nil {
+					errs[w] = err
+					return
+				}
 				ps.rowStats(b, keep, lo, hi, idx, val, eta, wz, ww, part)
 				if ps.mode == crossProducts {
-					accumulateCross(part, p, stride, lo, hi, idx, val, wz, ww)
+					accumulateCross(part, runs, p, stride, lo, hi, idx, val, wz, ww)
 				}
-			}(parts[w], lo, hi)
+			}(w, parts[w], lo, hi)
 		}
 		wg.Wait()
+		for _, err := range errs {
+			if err != nil {
+				return err
+			}
+		}
 		if qr != nil {
 			qr.add(stride, k, idx, val, wz, ww)
 		}
@@ -242,10 +250,13 @@ func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val
 }
 
 // accumulateCross adds Σ W x xᵀ, Σ W z x and Σ W z² over rows lo..hi to
-// part, touching only each row's non-zero entries (upper triangle; entries
-// of a row are in increasing column order).
-func accumulateCross(part *passResult, p, stride, lo, hi int, idx []int32, val []float64, wz, ww []float64) {
+// part, touching only each row's non-zero entries. A row's entries come in
+// runs of consecutive columns (four per curve margin, one per linear or
+// factor term), so the upper triangle is updated run by run with short
+// contiguous inner loops.
+func accumulateCross(part *passResult, runs []run, p, stride, lo, hi int, idx []int32, val []float64, wz, ww []float64) {
 	a := part.xtwx
+	xz := part.xtwz
 	for i := lo; i < hi; i++ {
 		wi := ww[i]
 		if wi == 0 {
@@ -253,21 +264,58 @@ func accumulateCross(part *passResult, p, stride, lo, hi int, idx []int32, val [
 		}
 		zi := wz[i]
 		base := i * stride
-		ri := idx[base : base+stride]
 		rv := val[base : base+stride]
+		ri := idx[base : base+stride]
 		for s, cs := range ri {
-			vs := wi * rv[s]
-			if vs == 0 {
-				continue
-			}
-			part.xtwz[cs] += vs * zi
-			row := a[int(cs)*p:]
-			for t := s; t < stride; t++ {
-				row[ri[t]] += vs * rv[t]
+			xz[cs] += wi * rv[s] * zi
+		}
+		for ra, runA := range runs {
+			sa := int(ri[runA.entry])
+			va := rv[runA.entry : runA.entry+runA.length]
+			for rb := ra; rb < len(runs); rb++ {
+				runB := runs[rb]
+				sb := int(ri[runB.entry])
+				vb := rv[runB.entry : runB.entry+runB.length]
+				for k, x := range va {
+					wx := wi * x
+					if wx == 0 {
+						continue
+					}
+					row := a[(sa+k)*p+sb : (sa+k)*p+sb+len(vb)]
+					from := 0
+					if rb == ra {
+						from = k
+					}
+					for l := from; l < len(vb); l++ {
+						row[l] += wx * vb[l]
+					}
+				}
 			}
 		}
 		part.ztwz += wi * zi * zi
 	}
+}
+
+// run is a stretch of a row's entries whose columns are consecutive.
+type run struct{ entry, length int }
+
+// runs lists the runs of a design's rows: the intercept, then each term's
+// (one per curve, four per surface: one for each first-margin function).
+func (d *design) runs() []run {
+	out := []run{{0, 1}}
+	e := 1
+	for _, t := range d.terms {
+		switch {
+		case t.spec.Kind == Surface:
+			for k := 0; k < 4; k++ {
+				out = append(out, run{e + 4*k, 4})
+			}
+		default:
+			out = append(out, run{e, t.nnz})
+		}
+		e += t.nnz
+	}
+	return out
 }
 
 // qrAccumulator keeps the triangular factor of [√W X, √W z] and folds in

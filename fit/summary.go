@@ -33,6 +33,7 @@ type columnStats struct {
 	distinct   map[float64]struct{}
 	tooMany    bool // more than maxDistinct distinct values
 	wantUnique bool
+	wantSample bool // keep a reservoir sample for quantile knots
 }
 
 func (c *columnStats) add(x float64, rng *rand.Rand) {
@@ -46,10 +47,12 @@ func (c *columnStats) add(x float64, rng *rand.Rand) {
 	d := x - c.mean
 	c.mean += d / float64(c.n)
 	c.m2 += d * (x - c.mean)
-	if len(c.sample) < quantileSample {
-		c.sample = append(c.sample, x)
-	} else if j := rng.IntN(c.n); j < quantileSample {
-		c.sample[j] = x
+	if c.wantSample {
+		if len(c.sample) < quantileSample {
+			c.sample = append(c.sample, x)
+		} else if j := rng.IntN(c.n); j < quantileSample {
+			c.sample[j] = x
+		}
 	}
 	if c.wantUnique && !c.tooMany {
 		c.distinct[x] = struct{}{}
@@ -161,9 +164,17 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 		s.numeric[c] = &columnStats{}
 	}
 	for _, t := range m.spec.Terms {
-		if t.Kind == Curve && t.Knots == AllKnots {
-			st := s.numeric[t.Columns[0]]
-			st.wantUnique, st.distinct = true, map[float64]struct{}{}
+		if t.Kind != Curve && t.Kind != Surface {
+			continue
+		}
+		for _, c := range t.Columns {
+			st := s.numeric[c]
+			switch {
+			case t.Knots == AllKnots:
+				st.wantUnique, st.distinct = true, map[float64]struct{}{}
+			case t.Knots == QuantileKnots || t.Knots == "" && (t.Basis == Cubic || t.Basis == ""):
+				st.wantSample = true
+			}
 		}
 	}
 	for _, c := range m.filter.text {
@@ -179,12 +190,9 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 			return err
 		}
 		y := b.Numeric[m.spec.Response]
-		var w, off []float64
+		var w []float64
 		if m.spec.Weights != "" {
 			w = b.Numeric[m.spec.Weights]
-		}
-		if m.spec.Offset != "" {
-			off = b.Numeric[m.spec.Offset]
 		}
 		for _, r := range keep {
 			wi := 1.0
@@ -193,21 +201,28 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 				if wi < 0 {
 					return &RowError{Line: lineOf(b, r, s.rowsRead), Column: m.spec.Weights, Err: fmt.Errorf("prior weights cannot be negative (got %g)", wi)}
 				}
+				if wi > 0 {
+					s.sumLogW += math.Log(wi)
+				}
 			}
 			if err := m.fam.CheckResponse(y[r], wi); err != nil {
 				return &RowError{Line: lineOf(b, r, s.rowsRead), Column: m.spec.Response, Err: err}
 			}
-			_ = off
 			s.sumW += wi
-			if wi > 0 {
-				s.sumLogW += math.Log(wi)
-			}
 			sumWY += wi * y[r]
-			for name, st := range s.numeric {
-				st.add(b.Numeric[name][r], rng)
+		}
+		// Column by column (in spec order, so the reservoir samples are
+		// reproducible): the inner loops touch one slice each.
+		for _, name := range m.covariates {
+			st, col := s.numeric[name], b.Numeric[name]
+			for _, r := range keep {
+				st.add(col[r], rng)
 			}
-			for name, lv := range s.levels {
-				lv[b.Text[name][r]]++
+		}
+		for name, lv := range s.levels {
+			col := b.Text[name]
+			for _, r := range keep {
+				lv[col[r]]++
 			}
 		}
 		s.rowsRead += b.Rows

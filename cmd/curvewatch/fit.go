@@ -41,7 +41,7 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	fl.String(&data, "data", "FILE", "the CSV file of rows to fit; its first line names the columns")
 	fl.String(&model, "model", "FILE", "the model spec (YAML) naming the response, family and terms")
 	fl.String(&out, "out", "FILE", "where to write the fit document (JSON); an existing file is replaced")
-	fl.Int(&maxIter, "max-iterations", "N", 100, "give up after this many fitting iterations (families other than gaussian with identity link iterate; the document is then marked unconverged)")
+	fl.Int(&maxIter, "max-iterations", "N", 100, "stop after this many fitting iterations and mark the document unconverged (only gaussian models with identity link are fitted in one step; the others iterate)")
 	fl.Bool(&quiet, "quiet", "write no progress or notices to stderr (the summary still goes to stdout; errors are still reported)")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
@@ -81,15 +81,11 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	log.Debug("fitting", "model", spec.Name, "data", data, "spec", model, "columns", len(src.Columns()))
 
 	prog := newProgress(e.stderr, quiet)
-	iterations := 0
 	opt := fit.Options{
 		MaxIterations: maxIter,
 		Logger:        log,
 		Progress: func(p fit.Progress) {
-			if p.Stage == "iteration" {
-				iterations++
-			}
-			prog.show(fitProgressLine(p, prog), iterations > 2)
+			prog.show(fitProgressLine(p, prog), p.Pass > 2)
 		},
 	}
 	doc, err := fit.Fit(ctx, spec, src, opt)
@@ -116,7 +112,7 @@ func runFit(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	if notConverged {
-		return fmt.Errorf("%w; %s was written but is marked \"converged\": false, and predict and compare refuse it. Allow more iterations (--max-iterations), or check that the family and link suit the response", err, out)
+		return fmt.Errorf("%w. It was written to %s all the same, but predict and compare refuse it: allow more iterations (--max-iterations), or check that the family and link suit the response", err, out)
 	}
 	return nil
 }

@@ -71,7 +71,7 @@ func (f *flags) parse(e *env, args []string) (done bool, err error) {
 	if err != nil {
 		msg := err.Error()
 		if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
-			msg = "unknown flag " + name
+			msg = "unknown flag -" + name
 		}
 		return false, f.usageError("%s", msg)
 	}
@@ -94,13 +94,21 @@ func (f *flags) require(value, name, what string) error {
 	return f.usageError("--%s is required: %s", name, what)
 }
 
-// logger logs to stderr: warnings only, or everything with --verbose.
+// logger logs to stderr: warnings only, without timestamps, or everything
+// with --verbose.
 func (f *flags) logger(e *env) *slog.Logger {
-	level := slog.LevelWarn
+	opt := &slog.HandlerOptions{Level: slog.LevelWarn}
 	if f.verbose {
-		level = slog.LevelDebug
+		opt.Level = slog.LevelDebug
+	} else {
+		opt.ReplaceAttr = func(groups []string, a slog.Attr) slog.Attr {
+			if len(groups) == 0 && a.Key == slog.TimeKey {
+				return slog.Attr{}
+			}
+			return a
+		}
 	}
-	return slog.New(slog.NewTextHandler(e.stderr, &slog.HandlerOptions{Level: level}))
+	return slog.New(slog.NewTextHandler(e.stderr, opt))
 }
 
 func (f *flags) writeHelp(w io.Writer) {

@@ -9,11 +9,11 @@ import (
 )
 
 // progress tells a person watching a long run how it is getting on. It
-// stays silent for short runs: it starts once the caller says the work is
-// going to take a while (say, the fit needs more than two iterations) or a
-// second has passed. On a terminal it keeps one line up to date with \r;
-// elsewhere (a log file, a pipe) it writes plain lines, at most one a
-// second. With quiet it writes nothing.
+// stays silent for short runs: it starts once a second has passed, or a
+// fifth of one when the caller expects more work (say, the fit needs more
+// than two passes over the rows). On a terminal it keeps one line up to
+// date with \r; elsewhere (a log file, a pipe) it writes plain lines, at
+// most one a second. With quiet it writes nothing.
 type progress struct {
 	w     io.Writer
 	tty   bool
@@ -28,6 +28,9 @@ type progress struct {
 // progressGap is how long progress waits between plain lines, and the
 // silence after which a run counts as long.
 const progressGap = time.Second
+
+// progressSoon is when a run that expects more work counts as long.
+const progressSoon = 200 * time.Millisecond
 
 // terminalGap is how often progress redraws its line on a terminal.
 const terminalGap = 100 * time.Millisecond
@@ -49,14 +52,18 @@ func isTerminal(w io.Writer) bool {
 // elapsed is the time since the run started.
 func (p *progress) elapsed() time.Duration { return p.now().Sub(p.start) }
 
-// show reports msg if the run is long enough to need it: long says the
-// caller already knows it is.
-func (p *progress) show(msg string, long bool) {
+// show reports msg if the run is long enough to need it; more says the
+// caller expects more work.
+func (p *progress) show(msg string, more bool) {
 	if p.quiet {
 		return
 	}
 	now := p.now()
-	if !p.shown && !long && now.Sub(p.start) < progressGap {
+	wait := progressGap
+	if more {
+		wait = progressSoon
+	}
+	if !p.shown && now.Sub(p.start) < wait {
 		return
 	}
 	gap := progressGap

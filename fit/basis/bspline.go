@@ -8,10 +8,7 @@
 // matrix sparse and the per-row cost of a fit small.
 package basis
 
-import (
-	"fmt"
-	"sort"
-)
+import "fmt"
 
 // BSpline is the B-spline basis of a given order (4 for cubic) on a
 // non-decreasing knot vector. It has len(Knots)−Order functions and is a
@@ -67,9 +64,16 @@ func (b *BSpline) span(x float64) int {
 		}
 		return hi
 	}
-	// Largest j in [lo, hi] with Knots[j] ≤ x.
-	j := lo + sort.Search(hi-lo+1, func(i int) bool { return b.Knots[lo+i] > x }) - 1
-	return j
+	// Largest j in [lo, hi] with Knots[j] ≤ x, by bisection.
+	for lo < hi {
+		mid := int(uint(lo+hi+1) >> 1)
+		if b.Knots[mid] <= x {
+			lo = mid
+		} else {
+			hi = mid - 1
+		}
+	}
+	return lo
 }
 
 // Eval writes into vals (length ≥ Order) the deriv-th derivative at x of the
@@ -82,13 +86,22 @@ func (b *BSpline) span(x float64) int {
 // (de Boor 1978, ch. X).
 func (b *BSpline) Eval(x float64, deriv int, vals []float64) int {
 	k := b.Order
-	t := b.Knots
 	lo, hi := b.Domain()
 	if x < lo {
 		x = lo
 	} else if x > hi {
 		x = hi
 	}
+	if deriv == 0 && k == 4 {
+		return b.evalCubic(x, vals)
+	}
+	return b.evalGeneral(x, deriv, vals)
+}
+
+// evalGeneral is Eval for any order and derivative, on a clamped x.
+func (b *BSpline) evalGeneral(x float64, deriv int, vals []float64) int {
+	k := b.Order
+	t := b.Knots
 	j := b.span(x)
 	for i := range vals[:k] {
 		vals[i] = 0
