@@ -399,10 +399,11 @@ func (d *design) centre(colSum []float64) error {
 		cons := append([]float64(nil), t.cons...)
 		cons = append(cons, colSum[t.start:t.start+t.width]...)
 		r := t.nCons + 1
-		if r >= t.width {
+		z, q := nullSpace(cons, r, t.width)
+		if q < 1 {
 			return fmt.Errorf("term %q: the basis is too small for its constraints", t.name)
 		}
-		t.z = nullSpace(cons, r, t.width)
+		t.z = z
 	}
 	d.layout()
 	return nil

@@ -81,46 +81,45 @@ func symEigen(a []float64, n int) ([]float64, *mat.Dense, bool) {
 	return es.Values(nil), &v, true
 }
 
-// nullSpace returns an orthonormal basis (k×(k−r), row-major) of the null
-// space of the r×k constraint matrix c (r < k, full row rank assumed), from
-// the QR factorisation of cᵀ: Z is the last k−r columns of Q.
-func nullSpace(c []float64, r, k int) []float64 {
+// nullSpace returns an orthonormal basis (k×q, row-major) of the null
+// space of the r×k constraint matrix c and its dimension q. Rows may be
+// linearly dependent (tensor-product constraints are): the rank is read off
+// the singular values, and the basis is the right singular vectors of the
+// negligible ones (Golub & Van Loan 2013, §2.4).
+func nullSpace(c []float64, r, k int) ([]float64, int) {
 	if r == 0 {
 		z := make([]float64, k*k)
 		for i := 0; i < k; i++ {
 			z[i*k+i] = 1
 		}
-		return z
+		return z, k
 	}
-	ct := make([]float64, k*r)
-	for i := 0; i < r; i++ {
-		for j := 0; j < k; j++ {
-			ct[j*r+i] = c[i*k+j]
+	// Pad to at least k rows so that the full V is available.
+	rows := max(r, k)
+	padded := make([]float64, rows*k)
+	copy(padded, c[:r*k])
+	var svd mat.SVD
+	if !svd.Factorize(mat.NewDense(rows, k, padded), mat.SVDFull) {
+		return nil, 0
+	}
+	vals := svd.Values(nil)
+	var v mat.Dense
+	svd.VTo(&v)
+	tol := 1e-10 * vals[0]
+	rank := 0
+	for _, s := range vals {
+		if s > tol {
+			rank++
 		}
 	}
-	g := blas64.General{Rows: k, Cols: r, Stride: r, Data: ct}
-	tau := make([]float64, r)
-	work := make([]float64, 1)
-	lapack64.Geqrf(g, tau, work, -1)
-	work = make([]float64, int(work[0]))
-	lapack64.Geqrf(g, tau, work, len(work))
-	// Q = H1…Hr applied to the identity; keep columns r..k−1.
-	q := make([]float64, k*k)
+	q := k - rank
+	z := make([]float64, k*q)
 	for i := 0; i < k; i++ {
-		q[i*k+i] = 1
-	}
-	qg := blas64.General{Rows: k, Cols: k, Stride: k, Data: q}
-	work = make([]float64, 1)
-	lapack64.Ormqr(blas.Left, blas.NoTrans, g, tau, qg, work, -1)
-	work = make([]float64, int(work[0]))
-	lapack64.Ormqr(blas.Left, blas.NoTrans, g, tau, qg, work, len(work))
-	z := make([]float64, k*(k-r))
-	for i := 0; i < k; i++ {
-		for j := r; j < k; j++ {
-			z[i*(k-r)+j-r] = q[i*k+j]
+		for j := 0; j < q; j++ {
+			z[i*q+j] = v.At(i, rank+j)
 		}
 	}
-	return z
+	return z, q
 }
 
 // matMul returns a·b for row-major a (n×m) and b (m×k).

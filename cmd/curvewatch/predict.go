@@ -21,7 +21,7 @@ A row with a missing covariate gets empty prediction cells. A row whose
 covariates lie outside the range the model was fitted on is predicted, but
 counted as an extrapolation in the report. A factor level the fit never saw
 is an error naming the line and column.`,
-	example: "curvewatch predict --fit s07-fit.json --data s07-june.csv --out s07-june-pred.csv",
+	example: "curvewatch predict --fit s07-fit.json --data june.csv --out june-pred.csv",
 	writes: []item{
 		{"--out", "a CSV file: every column of --data as read, then link (the linear predictor η), link_se (its standard error) and response (the mean μ = g⁻¹(η)). It is written to a temporary file beside it and renamed, so it is never left half written."},
 		{"stdout", "a report: rows predicted, rows left empty for a missing covariate, and rows outside the fitted range."},

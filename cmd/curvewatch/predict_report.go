@@ -54,9 +54,10 @@ func (t *predictTally) report(w io.Writer, doc *fit.Document, allowedUnconverged
 		row("left empty", "0")
 	}
 	if t.outside > 0 {
-		row("extrapolated", "%d outside the range the model was fitted on (%s); beyond it the curves continue as straight lines, so treat these with care", t.outside, lineList(t.outsideLines, t.outside))
+		row("extrapolated", "%d outside the fitted covariate range (%s):", t.outside, lineList(t.outsideLines, t.outside))
+		row("", "the curves continue there as straight lines; treat these with care")
 	} else {
-		row("extrapolated", "0: every covariate lies within the fitted range")
+		row("extrapolated", "0: every covariate is within the fitted range")
 	}
 	_, err := io.WriteString(w, b.String())
 	return err

@@ -111,7 +111,7 @@ func (l termLayout) row(kind, name, text string) {
 func (l termLayout) more(text string) { l.row("", "", text) }
 
 func writeTerms(b *strings.Builder, doc *fit.Document) {
-	fmt.Fprintf(b, "terms on the link scale (%s), each ± one standard error\n", doc.Link)
+	fmt.Fprintf(b, "terms on the %s link scale, each ± one standard error\n", doc.Link)
 	l := termLayout{b: b, name: 10}
 	for _, t := range doc.Terms {
 		l.name = max(l.name, len(termName(t)))
@@ -119,7 +119,7 @@ func writeTerms(b *strings.Builder, doc *fit.Document) {
 			l.name = max(l.name, len(lv)+2)
 		}
 	}
-	l.row("intercept", "", plusMinus(doc.Intercept.Estimate, doc.Intercept.SE, false)+"  (reference levels, curves at their mean, linear columns at 0)")
+	l.row("intercept", "", plusMinus(doc.Intercept.Estimate, doc.Intercept.SE, false)+"  (at the reference levels, linear columns at 0)")
 	for _, t := range doc.Terms {
 		switch t.Kind {
 		case fit.Curve:
@@ -163,14 +163,17 @@ func smoothText(t fit.TermResult) string {
 	return s
 }
 
+// writeCurve draws the curve's shape beside its EDF and strength, and
+// gives the size of its effect under them.
 func writeCurve(l termLayout, t fit.TermResult) {
-	l.row("curve", t.Name, smoothText(t))
 	if t.Grid == nil || len(t.Grid.Fit) == 0 {
+		l.row("curve", t.Name, smoothText(t))
 		return
 	}
+	l.row("curve", t.Name, sparkline(t.Grid.Fit, sparkWidth)+"  "+smoothText(t))
 	lo, hi := minMax(t.Grid.Fit)
 	xlo, xhi := minMax(t.Grid.X)
-	l.more(fmt.Sprintf("%s  %s across %s %s", sparkline(t.Grid.Fit, sparkWidth), span(lo, hi, true), t.Columns[0], span(xlo, xhi, false)))
+	l.more(fmt.Sprintf("effect %s over %s %s", span(lo, hi, true), t.Columns[0], span(xlo, xhi, false)))
 }
 
 func writeSurface(l termLayout, t fit.TermResult) {
@@ -186,7 +189,7 @@ func writeSurface(l termLayout, t fit.TermResult) {
 	lo, hi := minMax(all)
 	x1lo, x1hi := minMax(g.X1)
 	x2lo, x2hi := minMax(g.X2)
-	l.more(fmt.Sprintf("%s across %s %s and %s %s", span(lo, hi, true),
+	l.more(fmt.Sprintf("effect %s over %s %s and %s %s", span(lo, hi, true),
 		t.Columns[0], span(x1lo, x1hi, false), t.Columns[1], span(x2lo, x2hi, false)))
 }
 
