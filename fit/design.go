@@ -148,7 +148,36 @@ func curveBasis(kind Basis, rule KnotRule, size int, st *columnStats, period []f
 		}
 		return basis.NewNaturalCubic(knots)
 	case Cyclic:
-		return nil, fmt.Errorf("the cyclic basis is not available yet")
+		if len(period) != 2 || !(period[1] > period[0]) {
+			return nil, fmt.Errorf("a cyclic curve needs period: [start, end] with start < end")
+		}
+		if size == 0 {
+			size = 10
+		}
+		knots := make([]float64, size+1)
+		for i := range knots {
+			knots[i] = period[0] + (period[1]-period[0])*float64(i)/float64(size)
+		}
+		knots[size] = period[1]
+		if rule == QuantileKnots {
+			// Interior knots at quantiles of the wrapped data.
+			wrapped := make([]float64, len(st.sample))
+			p := period[1] - period[0]
+			for i, x := range st.sample {
+				y := math.Mod(x-period[0], p)
+				if y < 0 {
+					y += p
+				}
+				wrapped[i] = period[0] + y
+			}
+			slices.Sort(wrapped)
+			q := quantiles(append(append([]float64{period[0]}, wrapped...), period[1]), size+1)
+			q[0], q[size] = period[0], period[1]
+			if strictlyIncreasing(q) {
+				knots = q
+			}
+		}
+		return basis.NewCyclic(knots)
 	}
 	return nil, fmt.Errorf("unknown basis %q", kind)
 }

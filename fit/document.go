@@ -138,10 +138,13 @@ type BasisRecord struct {
 }
 
 // MarginRecord is one B-spline margin: its knot vector and the interval
-// [Lo, Hi] outside which it continues as a straight line.
+// [Lo, Hi] outside which it continues as a straight line (or wraps).
 type MarginRecord struct {
 	Basis Basis     `json:"basis"`
 	Knots []float64 `json:"knots"`
 	Lo    float64   `json:"lo"`
 	Hi    float64   `json:"hi"`
+	// Periodic margins wrap values into [Lo, Hi) (the period) instead of
+	// continuing as a straight line.
+	Periodic bool `json:"periodic,omitempty"`
 }

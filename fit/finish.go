@@ -4,6 +4,8 @@ import (
 	"context"
 	"fmt"
 	"math"
+
+	"github.com/curvewatch/curvewatch/fit/basis"
 )
 
 // nullMean returns the fitted mean of the intercept-only model as a
@@ -200,17 +202,15 @@ func transpose(a []float64, r, c int) []float64 {
 // record stores a penalised term's basis for prediction.
 func (t *termDesign) record() *BasisRecord {
 	rec := &BasisRecord{Width: t.width, Z: t.z}
-	add := func(c interface {
-		Len() int
-	}, b Basis, knots []float64, lo, hi float64) {
-		rec.Margins = append(rec.Margins, MarginRecord{Basis: b, Knots: knots, Lo: lo, Hi: hi})
+	add := func(c *basis.Curve) {
+		rec.Margins = append(rec.Margins, MarginRecord{Basis: t.spec.Basis, Knots: c.B.Knots, Lo: c.Lo, Hi: c.Hi, Periodic: c.Periodic})
 	}
 	if t.curve != nil {
-		add(t.curve, t.spec.Basis, t.curve.B.Knots, t.curve.Lo, t.curve.Hi)
+		add(t.curve)
 	}
 	for _, mg := range t.margins {
 		if mg != nil {
-			add(mg, t.spec.Basis, mg.B.Knots, mg.Lo, mg.Hi)
+			add(mg)
 		}
 	}
 	return rec

@@ -86,7 +86,7 @@ func NewPredictor(doc *Document) (*Predictor, error) {
 				if err != nil {
 					return nil, fmt.Errorf("term %q: %w", tr.Name, err)
 				}
-				pt.curves = append(pt.curves, &basis.Curve{B: b, Lo: mg.Lo, Hi: mg.Hi})
+				pt.curves = append(pt.curves, &basis.Curve{B: b, Lo: mg.Lo, Hi: mg.Hi, Periodic: mg.Periodic})
 				width *= b.Len()
 			}
 			if width != tr.Basis.Width || len(tr.Basis.Z) != width*pt.q {

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"bytes"
+	"context"
 	"encoding/json"
 	"os"
 	"path/filepath"
@@ -199,5 +201,23 @@ func TestFitNotice(t *testing.T) {
 	}
 	if r.stderr != "fit: wrote "+out+"\n" {
 		t.Errorf("stderr = %q, want only the note naming %s", r.stderr, out)
+	}
+}
+
+// An interrupted fit (SIGINT or SIGTERM cancel the context) writes nothing.
+func TestFitInterrupted(t *testing.T) {
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	out := filepath.Join(t.TempDir(), "fit.json")
+	var stdout, stderr bytes.Buffer
+	err := run(ctx, []string{"fit", "--data", sondeRowsCSV, "--model", sondeModel, "--out", out}, &stdout, &stderr)
+	if code := exit(err, &stderr); code != exitFailed {
+		t.Fatalf("exit code %d, want %d", code, exitFailed)
+	}
+	if want := "fit: interrupted; " + out + " was not written\n"; stderr.String() != want {
+		t.Errorf("stderr = %q, want %q", stderr.String(), want)
+	}
+	if _, err := os.Stat(out); err == nil {
+		t.Error("an interrupted fit wrote its document")
 	}
 }

@@ -33,7 +33,14 @@ type flags struct {
 	verbose bool
 }
 
-type flagDoc struct{ name, arg string }
+// flagDoc is what the help and the checks need to know about a flag.
+type flagDoc struct {
+	name, arg string
+	// required, when set, points at the value that must not be left
+	// empty, and what says what the flag is for.
+	required *string
+	what     string
+}
 
 func newFlags(cmd string, h help) *flags {
 	fs := flag.NewFlagSet(cmd, flag.ContinueOnError)
@@ -42,22 +49,23 @@ func newFlags(cmd string, h help) *flags {
 	return &flags{fs: fs, cmd: cmd, help: h}
 }
 
-// String defines a flag taking a value; arg names the value in the help.
-func (f *flags) String(p *string, name, arg, usage string) {
+// Required defines a flag that must be given; arg names its value in the
+// help, and what says what it is for when it is missing.
+func (f *flags) Required(p *string, name, arg, usage, what string) {
 	f.fs.StringVar(p, name, "", usage)
-	f.order = append(f.order, flagDoc{name, arg})
+	f.order = append(f.order, flagDoc{name: name, arg: arg, required: p, what: what})
 }
 
 // Int defines an integer flag with a default.
 func (f *flags) Int(p *int, name, arg string, value int, usage string) {
 	f.fs.IntVar(p, name, value, usage)
-	f.order = append(f.order, flagDoc{name, arg})
+	f.order = append(f.order, flagDoc{name: name, arg: arg})
 }
 
 // Bool defines a switch.
 func (f *flags) Bool(p *bool, name, usage string) {
 	f.fs.BoolVar(p, name, false, usage)
-	f.order = append(f.order, flagDoc{name, ""})
+	f.order = append(f.order, flagDoc{name: name})
 }
 
 // parse reads args. It returns done after printing the help for --help.
@@ -78,20 +86,17 @@ func (f *flags) parse(e *env, args []string) (done bool, err error) {
 	if f.fs.NArg() > 0 {
 		return false, f.usageError("unexpected argument %q: every input is named by a flag", f.fs.Arg(0))
 	}
+	for _, d := range f.order {
+		if d.required != nil && *d.required == "" {
+			return false, f.usageError("--%s is required: %s", d.name, d.what)
+		}
+	}
 	return false, nil
 }
 
 // usageError reports a wrong command line and points at --help.
 func (f *flags) usageError(format string, args ...any) error {
 	return usageErrorf("%s\nRun 'curvewatch %s --help' to see every flag.", fmt.Sprintf(format, args...), f.cmd)
-}
-
-// require reports a required flag that was left out, saying what it is for.
-func (f *flags) require(value, name, what string) error {
-	if value != "" {
-		return nil
-	}
-	return f.usageError("--%s is required: %s", name, what)
 }
 
 // logger logs to stderr: warnings only, without timestamps, or everything
@@ -126,7 +131,10 @@ func (f *flags) writeHelp(w io.Writer) {
 			line += " " + d.arg
 		}
 		usage := fl.Usage
-		if d.arg != "" && fl.DefValue != "" && fl.DefValue != "0" {
+		switch {
+		case d.required != nil:
+			usage += " (required)"
+		case d.arg != "" && fl.DefValue != "" && fl.DefValue != "0":
 			usage += " (default " + fl.DefValue + ")"
 		}
 		b.WriteString(line + "\n" + wrap(usage, "      ", "      ", helpWidth))

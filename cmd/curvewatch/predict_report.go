@@ -47,14 +47,14 @@ func (t *predictTally) report(w io.Writer, doc *fit.Document, allowedUnconverged
 	if !doc.Convergence.Converged && allowedUnconverged {
 		row("CAUTION", "the fit did not converge; these predictions come from it because of --allow-unconverged")
 	}
-	row("predicted", "%d", t.predicted)
+	row("predicted", "%s", count(t.predicted))
 	if t.missing > 0 {
-		row("left empty", "%d with a missing covariate (%s)", t.missing, lineList(t.missingLines, t.missing))
+		row("left empty", "%s with a missing covariate (%s)", count(t.missing), lineList(t.missingLines, t.missing))
 	} else {
 		row("left empty", "0")
 	}
 	if t.outside > 0 {
-		row("extrapolated", "%d outside the fitted covariate range (%s):", t.outside, lineList(t.outsideLines, t.outside))
+		row("extrapolated", "%s outside the fitted covariate range (%s):", count(t.outside), lineList(t.outsideLines, t.outside))
 		row("", "the curves continue there as straight lines; treat these with care")
 	} else {
 		row("extrapolated", "0: every covariate is within the fitted range")
@@ -75,7 +75,7 @@ func lineList(lines []int64, n int) string {
 	}
 	s += " " + strings.Join(parts, ", ")
 	if n > len(lines) {
-		s += fmt.Sprintf(" and %d more", n-len(lines))
+		s += " and " + count(n-len(lines)) + " more"
 	}
 	return s
 }

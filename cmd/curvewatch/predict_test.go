@@ -150,7 +150,7 @@ func TestPredictLongFileInStep(t *testing.T) {
 			t.Fatalf("record %d: link %s and response %s differ under the identity link", i+1, output[i][4], output[i][6])
 		}
 	}
-	if !strings.Contains(r.stdout, "predicted    10000") {
+	if !strings.Contains(r.stdout, "predicted    10,000") {
 		t.Errorf("the report does not count 10000 rows:\n%s", r.stdout)
 	}
 }
@@ -221,5 +221,29 @@ func TestPredictErrors(t *testing.T) {
 			r.wantCode(t, c.code)
 			r.wantStderr(t, c.wants...)
 		})
+	}
+}
+
+// A file as spreadsheets save it (a byte-order mark, CRLF line ends, no
+// final line end) reads the same as the plain one.
+func TestPredictSpreadsheetFile(t *testing.T) {
+	fr, doc := fitTo(t, sondeModel)
+	fr.wantCode(t, exitOK)
+	plain, err := os.ReadFile(sondeNewCSV)
+	if err != nil {
+		t.Fatal(err)
+	}
+	excel := "\uFEFF" + strings.TrimSuffix(strings.ReplaceAll(string(plain), "\n", "\r\n"), "\r\n")
+	path := filepath.Join(t.TempDir(), "excel.csv")
+	if err := os.WriteFile(path, []byte(excel), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	r1, out1 := predictFrom(t, doc, sondeNewCSV)
+	r1.wantCode(t, exitOK)
+	r2, out2 := predictFrom(t, doc, path)
+	r2.wantCode(t, exitOK)
+	a, b := readCSV(t, out1), readCSV(t, out2)
+	if !slices.EqualFunc(a, b, slices.Equal) {
+		t.Errorf("predictions differ between the plain and the spreadsheet file:\n%q\n%q", a, b)
 	}
 }

@@ -114,10 +114,29 @@ func minMax(values []float64) (lo, hi float64) {
 	return lo, hi
 }
 
-// plural returns "1 row" or "2 rows".
+// plural returns "1 row" or "2 rows", counting as count does.
 func plural(n int, one, many string) string {
 	if n == 1 {
 		return "1 " + one
 	}
-	return strconv.Itoa(n) + " " + many
+	return count(n) + " " + many
+}
+
+// count formats n with commas between groups of three digits, as in
+// 1,500,000, so that large row counts read at a glance.
+func count(n int) string {
+	s := strconv.Itoa(n)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
+	var b strings.Builder
+	if neg {
+		b.WriteByte('-')
+	}
+	for i, c := range s {
+		if i > 0 && (len(s)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(c)
+	}
+	return b.String()
 }

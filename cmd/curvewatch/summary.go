@@ -8,6 +8,7 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"github.com/curvewatch/curvewatch/fit"
 )
@@ -45,9 +46,9 @@ func writeOverall(b *strings.Builder, doc *fit.Document) {
 		response = doc.Spec.Response + " · "
 	}
 	row("response", "%s%s family · %s link", response, doc.Family, doc.Link)
-	rows := fmt.Sprintf("%d used of %d read", doc.Data.RowsUsed, doc.Data.RowsRead)
+	rows := count(doc.Data.RowsUsed) + " used of " + count(doc.Data.RowsRead) + " read"
 	if dropped := doc.Data.RowsRead - doc.Data.RowsUsed; dropped > 0 {
-		rows += fmt.Sprintf(" · %d dropped for a missing value (%s)", dropped, droppedCounts(doc.Data.Dropped))
+		rows += fmt.Sprintf(" · %s dropped for a missing value (%s)", count(dropped), droppedCounts(doc.Data.Dropped))
 	}
 	row("rows", "%s", rows)
 	row("explained", "%.1f%% of the deviance", 100*doc.DevianceExplained)
@@ -72,7 +73,7 @@ func droppedCounts(dropped map[string]int) string {
 	})
 	parts := make([]string, len(cols))
 	for i, c := range cols {
-		parts[i] = fmt.Sprintf("%s %d", c, dropped[c])
+		parts[i] = c + " " + count(dropped[c])
 	}
 	return strings.Join(parts, ", ")
 }
@@ -114,9 +115,9 @@ func writeTerms(b *strings.Builder, doc *fit.Document) {
 	fmt.Fprintf(b, "terms on the %s link scale, each ± one standard error\n", doc.Link)
 	l := termLayout{b: b, name: 10}
 	for _, t := range doc.Terms {
-		l.name = max(l.name, len(termName(t)))
+		l.name = max(l.name, utf8.RuneCountInString(termName(t)))
 		for lv := range t.Levels {
-			l.name = max(l.name, len(lv)+2)
+			l.name = max(l.name, utf8.RuneCountInString(lv)+2)
 		}
 	}
 	l.row("intercept", "", plusMinus(doc.Intercept.Estimate, doc.Intercept.SE, false)+"  (at the reference levels, linear columns at 0)")

@@ -182,3 +182,50 @@ func TestEvalCubicMatchesGeneral(t *testing.T) {
 		}
 	}
 }
+
+// A cyclic spline's value and first two derivatives agree at the two ends
+// of its period: the defining property of the periodic B-spline
+// construction (de Boor 1978, ch. IX), checked for random coefficients that
+// satisfy its constraints.
+func TestCyclicJoinsSmoothly(t *testing.T) {
+	for _, knots := range [][]float64{
+		{0, 6, 12, 18, 24},
+		{0, 1.5, 4, 9, 10, 17.5, 22, 24},
+	} {
+		c, err := NewCyclic(knots)
+		if err != nil {
+			t.Fatal(err)
+		}
+		n := c.Len()
+		k := len(knots) - 1
+		a := make([]float64, n)
+		for i := 0; i < k; i++ {
+			a[i] = math.Sin(float64(7*i+1)) * 3
+		}
+		for i := 0; i < 3; i++ {
+			a[k+i] = a[i]
+		}
+		eval := func(x float64, d int) float64 {
+			v := make([]float64, 4)
+			f := c.B.Eval(x, d, v)
+			s := 0.0
+			for i := range v {
+				s += v[i] * a[f+i]
+			}
+			return s
+		}
+		for d := 0; d <= 2; d++ {
+			lo, hi := eval(knots[0], d), eval(knots[k], d)
+			if math.Abs(lo-hi) > 1e-8*(1+math.Abs(lo)) {
+				t.Errorf("knots %v derivative %d: %.12g at the start, %.12g at the end", knots, d, lo, hi)
+			}
+		}
+		// Row wraps values outside the period.
+		v1, v2 := make([]float64, 4), make([]float64, 4)
+		f1 := c.Row(3, v1)
+		f2 := c.Row(27, v2)
+		if f1 != f2 || math.Abs(v1[0]-v2[0]) > 1e-12 {
+			t.Errorf("Row(27) does not wrap to Row(3)")
+		}
+	}
+}

@@ -19,6 +19,8 @@ type Curve struct {
 	Penalty *mat.SymDense
 	// Constraints holds rows c with c·a = 0; nil when there are none.
 	Constraints *mat.Dense
+	// Periodic curves wrap x into [Lo, Hi) instead of extending linearly.
+	Periodic bool
 }
 
 // Len is the number of B-spline coefficients.
@@ -27,6 +29,9 @@ func (c *Curve) Len() int { return c.B.Len() }
 // Row writes the Order design values at x into vals and returns the index
 // of the first coefficient they belong to.
 func (c *Curve) Row(x float64, vals []float64) int {
+	if c.Periodic {
+		return c.B.Eval(c.wrap(x), 0, vals)
+	}
 	switch {
 	case x < c.Lo:
 		return c.line(c.Lo, x-c.Lo, vals)
@@ -110,4 +115,54 @@ func NewPSpline(lo, hi float64, size int) (*Curve, error) {
 		return nil, err
 	}
 	return &Curve{B: b, Lo: lo, Hi: hi, Penalty: DifferencePenalty(size, 2), Constraints: nil}, nil
+}
+
+// NewCyclic returns a cyclic cubic spline on [a, b] whose value, slope and
+// curvature agree at a and b: cubic B-splines on the knots of one period,
+// extended periodically by three knots at each end, with the last three
+// coefficients tied to the first three (the periodic B-spline construction,
+// de Boor 1978, ch. IX; Eilers & Marx 1996 §8 for its penalised use). The
+// penalty is ∫_a^b f''(x)² dx exactly. knots holds a = κ₀ < … < κ_K = b; the
+// basis has dimension K. Values outside [a, b) are wrapped into it.
+func NewCyclic(knots []float64) (*Curve, error) {
+	k := len(knots) - 1
+	if k < 4 {
+		return nil, fmt.Errorf("basis: a cyclic spline needs at least 4 knot intervals, got %d", k)
+	}
+	for i := 1; i < len(knots); i++ {
+		if !(knots[i] > knots[i-1]) {
+			return nil, fmt.Errorf("basis: cyclic knots must increase (knot %d is %g after %g)", i, knots[i], knots[i-1])
+		}
+	}
+	a, b := knots[0], knots[k]
+	period := b - a
+	t := make([]float64, 0, k+7)
+	for j := 3; j >= 1; j-- {
+		t = append(t, knots[k-j]-period)
+	}
+	t = append(t, knots...)
+	for j := 1; j <= 3; j++ {
+		t = append(t, knots[j]+period)
+	}
+	bs, err := NewBSpline(t, 4)
+	if err != nil {
+		return nil, err
+	}
+	n := bs.Len() // k + 3
+	cons := mat.NewDense(3, n, nil)
+	for i := 0; i < 3; i++ {
+		cons.Set(i, i, 1)
+		cons.Set(i, k+i, -1)
+	}
+	return &Curve{B: bs, Lo: a, Hi: b, Penalty: CurvaturePenalty(bs), Constraints: cons, Periodic: true}, nil
+}
+
+// wrap maps x into [Lo, Hi) for a periodic curve.
+func (c *Curve) wrap(x float64) float64 {
+	p := c.Hi - c.Lo
+	y := math.Mod(x-c.Lo, p)
+	if y < 0 {
+		y += p
+	}
+	return c.Lo + y
 }

@@ -1,0 +1,34 @@
+# curvewatch — common tasks. `make help` lists them.
+.PHONY: help build test vet fmt bench fuzz references ci
+
+help: ## list the targets
+	@grep -E '^[a-z]+:.*## ' $(MAKEFILE_LIST) | awk -F':.*## ' '{printf "  %-11s %s\n", $$1, $$2}'
+
+build: ## build the curvewatch binary into ./bin
+	go build -o bin/curvewatch ./cmd/curvewatch
+
+test: ## run every test (the README's test command)
+	go test ./...
+
+vet: ## go vet and a gofmt check
+	go vet ./...
+	@test -z "$$(gofmt -l $$(git ls-files '*.go'))" || (gofmt -l $$(git ls-files '*.go'); exit 1)
+
+fmt: ## format the Go code
+	gofmt -w $$(git ls-files '*.go')
+
+bench: ## speed and memory against numpy on this machine (needs python3-numpy)
+	bench/run.sh
+
+fuzz: ## run each parser's fuzzer for 30 s
+	go test ./fit/ -run '^$$' -fuzz FuzzParseSpec -fuzztime 30s
+	go test ./fit/csvsource/ -run '^$$' -fuzz FuzzScan -fuzztime 30s
+
+references: ## regenerate the outside reference values (needs python3-scipy, python3-statsmodels)
+	/usr/bin/python3 testdata/reference/smoothing_spline/smoothing_spline.py
+	/usr/bin/python3 testdata/reference/glm/glm.py
+	/usr/bin/python3 testdata/reference/dobson/dobson.py
+	/usr/bin/python3 testdata/reference/longley/longley.py
+
+ci: ## what CI runs
+	.ci/run
