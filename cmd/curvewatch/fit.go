@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"log/slog"
 	"math"
 	"os"
 
@@ -33,93 +34,95 @@ predict' and 'curvewatch compare' need later.`,
 	},
 }
 
+// fitArgs are the fit command's flags.
+type fitArgs struct {
+	data, model, out string
+	maxIterations    int
+	quiet            bool
+}
+
 func runFit(ctx context.Context, e *env, args []string) error {
-	var data, model, out string
-	var quiet bool
-	var maxIter int
+	var a fitArgs
 	fl := newFlags("fit", fitHelp)
-	fl.String(&data, "data", "FILE", "the CSV file of rows to fit; its first line names the columns")
-	fl.String(&model, "model", "FILE", "the model spec (YAML) naming the response, family and terms")
-	fl.String(&out, "out", "FILE", "where to write the fit document (JSON); an existing file is replaced")
-	fl.Int(&maxIter, "max-iterations", "N", 100, "stop after this many fitting iterations and mark the document unconverged (only gaussian models with identity link are fitted in one step; the others iterate)")
-	fl.Bool(&quiet, "quiet", "write no progress or notices to stderr (the summary still goes to stdout; errors are still reported)")
+	fl.Required(&a.data, "data", "FILE", "the CSV file of rows to fit; its first line names the columns",
+		"the CSV file of rows to fit (first line: column names)")
+	fl.Required(&a.model, "model", "FILE", "the model spec (YAML) naming the response, family and terms",
+		"the model spec (YAML) saying what to fit")
+	fl.Required(&a.out, "out", "FILE", "where to write the fit document (JSON); an existing file is replaced",
+		"the file to write the fit document (JSON) to")
+	fl.Int(&a.maxIterations, "max-iterations", "N", 100, "stop after this many fitting iterations and mark the document unconverged (only gaussian models with identity link are fitted in one step; the others iterate)")
+	fl.Bool(&a.quiet, "quiet", "write no progress or notices to stderr (the summary still goes to stdout; errors are still reported)")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
 	}
-	for _, r := range []struct{ value, name, what string }{
-		{data, "data", "the CSV file of rows to fit (first line: column names)"},
-		{model, "model", "the model spec (YAML) saying what to fit"},
-		{out, "out", "the file to write the fit document (JSON) to"},
-	} {
-		if err := fl.require(r.value, r.name, r.what); err != nil {
-			return err
-		}
+	if a.maxIterations < 1 {
+		return fl.usageError("--max-iterations must be at least 1, not %d", a.maxIterations)
 	}
-	if maxIter < 1 {
-		return fl.usageError("--max-iterations must be at least 1, not %d", maxIter)
-	}
-	log := fl.logger(e)
-	if err := checkOutput(out, data, model); err != nil {
+	if err := checkOutput(a.out, a.data, a.model); err != nil {
 		return err
 	}
+	return fitFile(ctx, e, a, fl.logger(e))
+}
 
-	text, err := os.ReadFile(model)
+// fitFile reads the spec and the rows, fits, writes the document and
+// prints the summary.
+func fitFile(ctx context.Context, e *env, a fitArgs, log *slog.Logger) error {
+	text, err := os.ReadFile(a.model)
 	if err != nil {
 		return fmt.Errorf("cannot read the model spec: %w", err)
 	}
 	spec, err := fit.ParseSpec(text)
 	if err != nil {
-		return specProblems(err, model, fmt.Sprintf("the model spec %s has problems; fix them and run again:", model))
+		return specProblems(err, a.model, fmt.Sprintf("the model spec %s has problems; fix them and run again:", a.model))
 	}
-	src, err := csvsource.Open(data)
+	src, err := csvsource.Open(a.data)
 	if err != nil {
 		return fmt.Errorf("cannot read the data: %w", err)
 	}
 	if err := spec.CheckColumns(src.Columns()); err != nil {
-		return specProblems(err, model, fmt.Sprintf("the model spec %s uses columns that %s lacks:", model, data))
+		return specProblems(err, a.model, fmt.Sprintf("the model spec %s uses columns that %s lacks:", a.model, a.data))
 	}
-	log.Debug("fitting", "model", spec.Name, "data", data, "spec", model, "columns", len(src.Columns()))
+	log.Debug("fitting", "model", spec.Name, "data", a.data, "spec", a.model, "columns", len(src.Columns()))
 
-	prog := newProgress(e.stderr, quiet)
-	opt := fit.Options{
-		MaxIterations: maxIter,
+	prog := newProgress(e.stderr, a.quiet)
+	doc, err := fit.Fit(ctx, spec, src, fit.Options{
+		MaxIterations: a.maxIterations,
 		Logger:        log,
 		Progress: func(p fit.Progress) {
 			prog.show(fitProgressLine(p, prog), p.Pass > 2)
 		},
-	}
-	doc, err := fit.Fit(ctx, spec, src, opt)
+	})
 	if doc != nil {
-		prog.done(fmt.Sprintf("fit: %d passes over %d rows in %s", doc.Convergence.Passes, doc.Data.RowsRead, seconds(prog.elapsed())))
+		prog.done(fmt.Sprintf("fit: %s over %s in %s", plural(doc.Convergence.Passes, "pass", "passes"), plural(doc.Data.RowsRead, "row", "rows"), seconds(prog.elapsed())))
 	} else {
-		prog.done(fmt.Sprintf("fit: stopped after %s", seconds(prog.elapsed())))
+		prog.done("fit: stopped after " + seconds(prog.elapsed()))
 	}
 	notConverged := errors.Is(err, fit.ErrNotConverged) && doc != nil
 	if err != nil && !notConverged {
 		if ctx.Err() != nil {
-			return fmt.Errorf("interrupted; %s was not written", out)
+			return fmt.Errorf("interrupted; %s was not written", a.out)
 		}
-		return inFile(err, data)
+		return inFile(err, a.data)
 	}
-	if werr := writeDocument(out, doc); werr != nil {
-		return werr
+	if err := writeDocument(a.out, doc); err != nil {
+		return err
 	}
-	log.Debug("fit written", "out", out, "seconds", prog.elapsed().Seconds())
-	if !quiet {
-		fmt.Fprintf(e.stderr, "fit: wrote %s\n", out)
+	log.Debug("fit written", "out", a.out, "seconds", prog.elapsed().Seconds())
+	if !a.quiet {
+		fmt.Fprintf(e.stderr, "fit: wrote %s\n", a.out)
 	}
 	if err := writeSummary(e.stdout, doc); err != nil {
 		return err
 	}
 	if notConverged {
-		return fmt.Errorf("%w. It was written to %s all the same, but predict and compare refuse it: allow more iterations (--max-iterations), or check that the family and link suit the response", err, out)
+		return fmt.Errorf("%w. It was written to %s all the same, but predict and compare refuse it: allow more iterations (--max-iterations), or check that the family and link suit the response", err, a.out)
 	}
 	return nil
 }
 
 // fitProgressLine describes one finished pass over the rows.
 func fitProgressLine(p fit.Progress, prog *progress) string {
-	s := fmt.Sprintf("fit: pass %d (%s) over %d rows", p.Pass, p.Stage, p.Rows)
+	s := fmt.Sprintf("fit: pass %d (%s) over %s", p.Pass, p.Stage, plural(p.Rows, "row", "rows"))
 	if !math.IsNaN(p.Deviance) {
 		s += fmt.Sprintf(", deviance %.6g", p.Deviance)
 	}

@@ -221,3 +221,9 @@ func TestFitInterrupted(t *testing.T) {
 		t.Error("an interrupted fit wrote its document")
 	}
 }
+
+func TestFitVerbose(t *testing.T) {
+	r, _ := fitTo(t, sondeModel, "--verbose")
+	r.wantCode(t, exitOK)
+	r.wantStderr(t, "level=DEBUG", `msg=fitting model=sonde-oxygen`)
+}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"log/slog"
 	"strings"
 
 	"github.com/curvewatch/curvewatch/fit"
@@ -37,59 +38,62 @@ is an error naming the line and column.`,
 // predictColumns are the columns predict adds to the input's.
 var predictColumns = []string{"link", "link_se", "response"}
 
+// predictArgs are the predict command's flags.
+type predictArgs struct {
+	fit, data, out          string
+	quiet, allowUnconverged bool
+}
+
 func runPredict(ctx context.Context, e *env, args []string) error {
-	var docPath, data, out string
-	var quiet, allowUnconverged bool
+	var a predictArgs
 	fl := newFlags("predict", predictHelp)
-	fl.String(&docPath, "fit", "FILE", "the fit document (JSON) written by 'curvewatch fit'")
-	fl.String(&data, "data", "FILE", "the CSV file of rows to predict; its first line names the columns")
-	fl.String(&out, "out", "FILE", "where to write the rows with their predictions (CSV); an existing file is replaced")
-	fl.Bool(&allowUnconverged, "allow-unconverged", "predict from a fit that did not converge (its coefficients are not a solution of the fitting problem, so treat the numbers with suspicion)")
-	fl.Bool(&quiet, "quiet", "write no progress or notices to stderr (the report still goes to stdout; errors are still reported)")
+	fl.Required(&a.fit, "fit", "FILE", "the fit document (JSON) written by 'curvewatch fit'",
+		"the fit document (JSON) written by 'curvewatch fit'")
+	fl.Required(&a.data, "data", "FILE", "the CSV file of rows to predict; its first line names the columns",
+		"the CSV file of rows to predict (first line: column names)")
+	fl.Required(&a.out, "out", "FILE", "where to write the rows with their predictions (CSV); an existing file is replaced",
+		"the CSV file to write the rows and their predictions to")
+	fl.Bool(&a.allowUnconverged, "allow-unconverged", "predict from a fit that did not converge (its coefficients are not a solution of the fitting problem, so treat the numbers with suspicion)")
+	fl.Bool(&a.quiet, "quiet", "write no progress or notices to stderr (the report still goes to stdout; errors are still reported)")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
 	}
-	for _, r := range []struct{ value, name, what string }{
-		{docPath, "fit", "the fit document (JSON) written by 'curvewatch fit'"},
-		{data, "data", "the CSV file of rows to predict (first line: column names)"},
-		{out, "out", "the CSV file to write the rows and their predictions to"},
-	} {
-		if err := fl.require(r.value, r.name, r.what); err != nil {
-			return err
-		}
-	}
-	log := fl.logger(e)
-	if err := checkOutput(out, data, docPath); err != nil {
+	if err := checkOutput(a.out, a.data, a.fit); err != nil {
 		return err
 	}
+	return predictFile(ctx, e, a, fl.logger(e))
+}
 
-	doc, err := readDocument(docPath)
+// predictFile loads the document, streams the rows through it into the
+// output file and prints the report.
+func predictFile(ctx context.Context, e *env, a predictArgs, log *slog.Logger) error {
+	doc, err := readDocument(a.fit)
 	if err != nil {
 		return err
 	}
 	if c := doc.Convergence; !c.Converged {
-		if !allowUnconverged {
-			return fmt.Errorf("%s holds a fit of model %q that did not converge (it stopped after %s, relative change %.3g): its coefficients are not a solution, so its predictions could be far off. Refit with more --max-iterations, or pass --allow-unconverged to predict from it anyway", docPath, doc.Model, plural(c.Iterations, "iteration", "iterations"), c.RelativeChange)
+		if !a.allowUnconverged {
+			return fmt.Errorf("%s holds a fit of model %q that did not converge (it stopped after %s, relative change %.3g): its coefficients are not a solution, so its predictions could be far off. Refit with more --max-iterations, or pass --allow-unconverged to predict from it anyway", a.fit, doc.Model, plural(c.Iterations, "iteration", "iterations"), c.RelativeChange)
 		}
-		log.Warn("predicting from a fit that did not converge", "fit", docPath, "model", doc.Model)
+		log.Warn("predicting from a fit that did not converge", "fit", a.fit, "model", doc.Model)
 	}
 	pred, err := fit.NewPredictor(doc)
 	if err != nil {
-		return fmt.Errorf("%s cannot be used to predict: %w", docPath, err)
+		return fmt.Errorf("%s cannot be used to predict: %w", a.fit, err)
 	}
-	src, err := csvsource.Open(data)
+	src, err := csvsource.Open(a.data)
 	if err != nil {
 		return fmt.Errorf("cannot read the data: %w", err)
 	}
-	if err := checkPredictColumns(src.Columns(), pred.Need(), doc.Model, data); err != nil {
+	if err := checkPredictColumns(src.Columns(), pred.Need(), doc.Model, a.data); err != nil {
 		return err
 	}
-	log.Debug("predicting", "model", doc.Model, "fit", docPath, "data", data)
+	log.Debug("predicting", "model", doc.Model, "fit", a.fit, "data", a.data)
 
-	prog := newProgress(e.stderr, quiet)
+	prog := newProgress(e.stderr, a.quiet)
 	var tally predictTally
-	err = writeAtomic(out, func(w io.Writer) error {
-		pw, err := newPredictWriter(data, w)
+	err = writeAtomic(a.out, func(w io.Writer) error {
+		pw, err := newPredictWriter(a.data, w)
 		if err != nil {
 			return err
 		}
@@ -98,7 +102,7 @@ func runPredict(ctx context.Context, e *env, args []string) error {
 			if err := pw.write(p, &tally); err != nil {
 				return err
 			}
-			prog.show(fmt.Sprintf("predict: %d rows, %s", tally.rows, seconds(prog.elapsed())), false)
+			prog.show("predict: "+plural(tally.rows, "row", "rows")+", "+seconds(prog.elapsed()), false)
 			return nil
 		})
 		if err != nil {
@@ -106,17 +110,18 @@ func runPredict(ctx context.Context, e *env, args []string) error {
 		}
 		return pw.flush()
 	})
-	prog.done(fmt.Sprintf("predict: %d rows in %s", tally.rows, seconds(prog.elapsed())))
+	prog.done("predict: " + plural(tally.rows, "row", "rows") + " in " + seconds(prog.elapsed()))
 	if err != nil {
 		if ctx.Err() != nil {
-			return fmt.Errorf("interrupted; %s was not written", out)
+			return fmt.Errorf("interrupted; %s was not written", a.out)
 		}
-		return inFile(err, data)
+		return inFile(err, a.data)
 	}
-	if !quiet {
-		fmt.Fprintf(e.stderr, "predict: wrote %s\n", out)
+	log.Debug("predictions written", "out", a.out, "rows", tally.rows, "seconds", prog.elapsed().Seconds())
+	if !a.quiet {
+		fmt.Fprintf(e.stderr, "predict: wrote %s\n", a.out)
 	}
-	return tally.report(e.stdout, doc, allowUnconverged)
+	return tally.report(e.stdout, doc, a.allowUnconverged)
 }
 
 // checkPredictColumns checks the input has what the model needs and no
