@@ -89,6 +89,11 @@ type TermResult struct {
 	// curve or surface, on the scale of the penalty βᵀSβ.
 	Smoothing      []float64 `json:"smoothing,omitempty"`
 	SmoothingFixed bool      `json:"smoothing_fixed,omitempty"`
+	// SmoothingLimit is "upper" when a chosen strength reached the top of
+	// its search range (the term is then, to within 1e-6 EDF, in its
+	// penalty's null space: a straight line for a curve) and "lower" when
+	// it reached the bottom (as rough as the basis allows).
+	SmoothingLimit string `json:"smoothing_limit,omitempty"`
 	// Grid tabulates a curve over its data range.
 	Grid *CurveGrid `json:"grid,omitempty"`
 	// SurfaceGrid tabulates a surface over its data rectangle.

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"slices"
 
 	"github.com/curvewatch/curvewatch/fit/basis"
 )
@@ -162,7 +163,16 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 		switch t.spec.Kind {
 		case Curve, Surface:
 			for k := range t.rawPens {
-				tr.Smoothing = append(tr.Smoothing, lambda[t.penStart+k])
+				j := t.penStart + k
+				tr.Smoothing = append(tr.Smoothing, lambda[j])
+				if a := slices.Index(st.sel.free, j); a >= 0 {
+					switch {
+					case st.rho[a] >= st.sel.hi[a]-1e-9:
+						tr.SmoothingLimit = "upper"
+					case st.rho[a] <= st.sel.lo[a]+1e-9 && tr.SmoothingLimit == "":
+						tr.SmoothingLimit = "lower"
+					}
+				}
 			}
 			tr.SmoothingFixed = len(t.spec.Smoothing) > 0
 			tr.Basis = t.record()

@@ -27,7 +27,8 @@ type Options struct {
 	// MaxIterations bounds the PIRLS steps (default 100).
 	MaxIterations int
 	// Tolerance ends PIRLS when the penalised deviance changes by less than
-	// this fraction (default 1e-12).
+	// this fraction (default 1e-10) and no coefficient moves by more than
+	// 1e-8 of its standard error (plus 1e-9 of its size).
 	Tolerance float64
 	// Workers is how many goroutines share a pass (default: GOMAXPROCS, at
 	// most 4).
@@ -43,7 +44,7 @@ type Options struct {
 // Progress reports one finished pass over the rows.
 type Progress struct {
 	Pass  int
-	Stage string // "summary", "iteration", "final"
+	Stage string // "summary", "iteration" or "null model"
 	Rows  int
 	// Deviance is the deviance at the pass's coefficients (NaN for the
 	// summary pass).
@@ -123,7 +124,7 @@ func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
 	opt.SurfaceGridPoints = cmpOr(opt.SurfaceGridPoints, 30)
 	opt.MaxIterations = cmpOr(opt.MaxIterations, 100)
 	if opt.Tolerance == 0 {
-		opt.Tolerance = 1e-12
+		opt.Tolerance = 1e-10
 	}
 	opt.Workers = cmpOr(opt.Workers, defaultWorkers())
 	log := opt.Logger
@@ -280,6 +281,7 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		// Evaluate the new β; halve the step while the penalised deviance
 		// (at the λ that produced β) rises or the means are invalid.
 		var pen float64
+		stalled := false
 		for half := 0; ; half++ {
 			res, err = f.pass(ctx, st, newBeta, f.mode, nil, f.phi)
 			if err != nil {
@@ -295,19 +297,36 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 				prevPen = prevAtLambda
 				break
 			}
+			f.log.Debug("PIRLS step rejected", "iteration", st.iter, "halving", half, "penalised_deviance", pen, "previous", prevAtLambda, "invalid", res.invalid)
 			if half >= 30 {
+				if !res.invalid && pen-prevAtLambda <= 1e-7*(math.Abs(prevAtLambda)+0.1) {
+					// The step cannot improve on the previous β beyond
+					// rounding: that β is the minimum.
+					stalled = true
+					break
+				}
 				return nil, errors.New("PIRLS could not find a step that lowers the penalised deviance; the model may be unsuited to the data (check the family and link)")
 			}
 			for i := range newBeta {
 				newBeta[i] = (newBeta[i] + prevBeta[i]) / 2
 			}
 		}
+		if stalled {
+			// Re-evaluate at the previous β so the document's deviance and
+			// working model belong to the β it reports.
+			res, err = f.pass(ctx, st, prevBeta, f.mode, nil, f.phi)
+			if err != nil {
+				return nil, err
+			}
+			st.beta, st.res, st.conv, st.relChg = prevBeta, res, true, 0
+			break
+		}
 		st.relChg = math.Abs(pen-prevPen) / (math.Abs(pen) + 0.1)
 		st.beta, st.res = newBeta, res
 		if !m.fam.FixedScale() {
 			f.phi = res.dev / float64(res.n)
 		}
-		if st.relChg < f.opt.Tolerance && coefficientsSettled(prevBeta, newBeta, st.eval.sol.hinv) {
+		if st.relChg < f.opt.Tolerance && coefficientsSettled(prevBeta, newBeta, st.eval.sol.hinv, f.phi) {
 			st.conv = true
 			break
 		}
@@ -341,14 +360,14 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 }
 
 // coefficientsSettled reports whether no coefficient moved by more than
-// 1e-9 of its size plus 1e-12 of its (unscaled) posterior standard
-// deviation √(H⁻¹)_ii: the deviance is flat near its minimum, so a small
-// change in it alone does not pin the coefficients down, and a coefficient
-// that is exactly zero only jitters in its last bits.
-func coefficientsSettled(prev, next, hinv []float64) bool {
+// 1e-9 of its size plus 1e-8 of its posterior standard deviation
+// √(φ H⁻¹)_ii: the deviance is flat near its minimum, so a small change in
+// it alone does not pin the coefficients down, while a coefficient that is
+// (nearly) zero only jitters in its last bits.
+func coefficientsSettled(prev, next, hinv []float64, phi float64) bool {
 	p := len(next)
 	for i := range next {
-		tol := 1e-9*math.Abs(next[i]) + 1e-12*math.Sqrt(math.Abs(hinv[i*p+i]))
+		tol := 1e-9*math.Abs(next[i]) + 1e-8*math.Sqrt(math.Abs(hinv[i*p+i]*phi))
 		if math.Abs(next[i]-prev[i]) > tol {
 			return false
 		}
@@ -453,8 +472,12 @@ func (f *fitter) setupPenalties(st *pirlsState, pr *problem) error {
 		sel.free = append(sel.free, j)
 		rho := math.Log(lam)
 		st.rho = append(st.rho, rho)
-		sel.lo = append(sel.lo, rho-25)
-		sel.hi = append(sel.hi, rho+25)
+		// ±15 in log λ around the balanced start: at the upper end a term
+		// is indistinguishable from its penalty's null space (its penalised
+		// EDF is below 1e-6), and staying inside keeps [R; √λE] far enough
+		// from singular that λβᵀSβ is not dominated by rounding.
+		sel.lo = append(sel.lo, rho-15)
+		sel.hi = append(sel.hi, rho+15)
 	}
 	st.sel = sel
 	return nil

@@ -1,15 +1,16 @@
 package fit
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
+	"maps"
 	"math"
 	"math/rand/v2"
 	"slices"
 	"strconv"
-
-	"github.com/curvewatch/curvewatch/fit/family"
+	"strings"
 )
 
 // Limits on what the first pass keeps per column, so that memory does not
@@ -274,39 +275,33 @@ func droppedText(d map[string]int) string {
 	return out
 }
 
-// sortLevels orders factor levels: numerically when every level reads as a
-// number, otherwise by bytes. The first is the reference level.
-func sortLevels(levels map[string]int) []string {
-	out := make([]string, 0, len(levels))
+// SortLevels orders factor levels as the engine codes them: numerically
+// when every level reads as a number (ties by text), otherwise by bytes. The
+// first is the reference level. It sorts names in place and returns it.
+func SortLevels(names []string) []string {
 	numeric := true
-	for l := range levels {
-		out = append(out, l)
+	for _, l := range names {
 		if _, err := strconv.ParseFloat(l, 64); err != nil {
 			numeric = false
+			break
 		}
 	}
-	if numeric {
-		slices.SortFunc(out, func(a, b string) int {
-			x, _ := strconv.ParseFloat(a, 64)
-			y, _ := strconv.ParseFloat(b, 64)
-			switch {
-			case x < y:
-				return -1
-			case x > y:
-				return 1
-			}
-			if a < b {
-				return -1
-			}
-			if a > b {
-				return 1
-			}
-			return 0
-		})
-	} else {
-		slices.Sort(out)
+	if !numeric {
+		slices.Sort(names)
+		return names
 	}
-	return out
+	slices.SortFunc(names, func(a, b string) int {
+		x, _ := strconv.ParseFloat(a, 64)
+		y, _ := strconv.ParseFloat(b, 64)
+		if c := cmp.Compare(x, y); c != 0 {
+			return c
+		}
+		return strings.Compare(a, b)
+	})
+	return names
 }
 
-var _ family.Family
+// sortLevels returns the keys of a level count map in SortLevels order.
+func sortLevels(levels map[string]int) []string {
+	return SortLevels(slices.Collect(maps.Keys(levels)))
+}

@@ -6,7 +6,6 @@ import (
 	"io"
 	"maps"
 	"slices"
-	"strconv"
 	"strings"
 	"unicode/utf8"
 
@@ -158,8 +157,15 @@ func smoothText(t fit.TermResult) string {
 		word = "strengths"
 	}
 	s := fmt.Sprintf("edf %.2f · %s %s", t.EDF, word, strengths(t.Smoothing))
-	if t.SmoothingFixed {
+	switch {
+	case t.SmoothingFixed:
 		s += " (fixed)"
+	case t.SmoothingLimit == "upper" && t.Kind == fit.Curve:
+		s += " (the most allowed: the curve is a straight line)"
+	case t.SmoothingLimit == "upper":
+		s += " (the most allowed: the surface is as flat as its penalties permit)"
+	case t.SmoothingLimit == "lower":
+		s += " (the least allowed: as wiggly as the basis permits)"
 	}
 	return s
 }
@@ -202,19 +208,7 @@ func writeFactor(l termLayout, t fit.TermResult) {
 	}
 }
 
-// levelOrder sorts factor levels as the engine codes them: by number when
-// every level is a number, otherwise as text.
+// levelOrder lists factor levels in the engine's coding order.
 func levelOrder(levels map[string]fit.Estimate) []string {
-	names := slices.Sorted(maps.Keys(levels))
-	for _, n := range names {
-		if _, err := strconv.ParseFloat(n, 64); err != nil {
-			return names
-		}
-	}
-	slices.SortStableFunc(names, func(a, b string) int {
-		x, _ := strconv.ParseFloat(a, 64)
-		y, _ := strconv.ParseFloat(b, 64)
-		return cmp.Compare(x, y)
-	})
-	return names
+	return fit.SortLevels(slices.Collect(maps.Keys(levels)))
 }
