@@ -47,6 +47,10 @@ type termDesign struct {
 	rawPens  [][]float64 // raw penalties (width × width)
 	z        []float64   // width × q null-space basis (nil: identity on active)
 	active   []int       // unpenalised terms: raw columns kept (others aliased)
+	// interaction marks a surface whose margins are centred (each margin's
+	// function integrates to zero over its range), so that it holds only
+	// the interaction and curves or lines of its columns stay identifiable.
+	interaction bool
 	aliased  []string    // names of raw columns dropped as aliased
 	q        int         // constrained coefficients
 	cstart   int         // first constrained coefficient
@@ -87,7 +91,7 @@ func buildDesign(m *modelSetup, s *summary) (*design, error) {
 			}
 			t.rawPens = [][]float64{symFull(c.Penalty)}
 		case Surface:
-			if err := surfaceDesign(t, ts, s); err != nil {
+			if err := surfaceDesign(t, ts, s, sharesColumn(m.spec.Terms, i)); err != nil {
 				return nil, fmt.Errorf("%s: %w", where, err)
 			}
 		case Linear:
@@ -115,12 +119,27 @@ func buildDesign(m *modelSetup, s *summary) (*design, error) {
 		default:
 			return nil, fmt.Errorf("%s: unknown kind %q", where, ts.Kind)
 		}
-		_ = i
 		d.p += t.width
 		d.nnz += t.nnz
 		d.terms = append(d.terms, t)
 	}
 	return d, nil
+}
+
+// sharesColumn reports whether a column of term i also appears in another
+// curve or linear term.
+func sharesColumn(terms []TermSpec, i int) bool {
+	for j, o := range terms {
+		if j == i || (o.Kind != Curve && o.Kind != Linear) {
+			continue
+		}
+		for _, c := range terms[i].Columns {
+			if slices.Contains(o.Columns, c) {
+				return true
+			}
+		}
+	}
+	return false
 }
 
 func sizeAt(size []int, i int) int {
@@ -261,7 +280,10 @@ func strictlyIncreasing(x []float64) bool {
 // margins' bases, one penalty per margin S₁⊗I and I⊗S₂, and the margins'
 // constraints as C₁⊗I and I⊗C₂ (Wood 2006, "Low-rank scale-invariant tensor
 // product smooths", Biometrics 62).
-func surfaceDesign(t *termDesign, ts TermSpec, s *summary) error {
+//
+// When interaction is set the margins are also centred, leaving only the
+// interaction between the two columns.
+func surfaceDesign(t *termDesign, ts TermSpec, s *summary, interaction bool) error {
 	for i := 0; i < 2; i++ {
 		size := sizeAt(ts.Size, i)
 		if size == 0 {
@@ -296,6 +318,29 @@ func surfaceDesign(t *termDesign, ts TermSpec, s *summary) error {
 		}
 	}
 	t.rawPens = [][]float64{p1, p2}
+	t.interaction = interaction
+	if interaction {
+		// Margin centring c₁ᵀ⊗I and I⊗c₂ᵀ, with c_m the integrals of the
+		// margin's basis (the ANOVA decomposition of a tensor product: Gu
+		// 2002, "Smoothing Spline ANOVA Models", ch. 2; Wood 2017 §5.6.3).
+		c1, c2 := t.margins[0].Integrals(), t.margins[1].Integrals()
+		for col := 0; col < k2; col++ {
+			row := make([]float64, t.width)
+			for a := 0; a < k1; a++ {
+				row[a*k2+col] = c1[a]
+			}
+			t.cons = append(t.cons, row...)
+			t.nCons++
+		}
+		for a := 0; a < k1; a++ {
+			row := make([]float64, t.width)
+			for col := 0; col < k2; col++ {
+				row[a*k2+col] = c2[col]
+			}
+			t.cons = append(t.cons, row...)
+			t.nCons++
+		}
+	}
 	// Constraints C₁⊗I and I⊗C₂.
 	if c := t.margins[0].Constraints; c != nil {
 		r, _ := c.Dims()
@@ -426,8 +471,11 @@ func (d *design) centre(colSum []float64) error {
 			continue
 		}
 		cons := append([]float64(nil), t.cons...)
-		cons = append(cons, colSum[t.start:t.start+t.width]...)
-		r := t.nCons + 1
+		r := t.nCons
+		if !t.interaction {
+			cons = append(cons, colSum[t.start:t.start+t.width]...)
+			r++
+		}
 		z, q := nullSpace(cons, r, t.width)
 		if q < 1 {
 			return fmt.Errorf("term %q: the basis is too small for its constraints", t.name)

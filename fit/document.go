@@ -96,6 +96,9 @@ type TermResult struct {
 	SmoothingLimit string `json:"smoothing_limit,omitempty"`
 	// Grid tabulates a curve over its data range.
 	Grid *CurveGrid `json:"grid,omitempty"`
+	// Interaction is set for a surface that holds only the interaction of
+	// its columns (their own curves or lines are separate terms).
+	Interaction bool `json:"interaction,omitempty"`
 	// SurfaceGrid tabulates a surface over its data rectangle.
 	SurfaceGrid *SurfaceGrid `json:"surface_grid,omitempty"`
 	// Estimate and SE are set for a linear term (per unit of its column).

@@ -151,7 +151,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
 	lambda := st.sel.lambdaAt(st.rho)
 	for _, t := range d.terms {
-		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased}
+		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased, Interaction: t.interaction}
 		for c := 0; c < t.q; c++ {
 			tr.EDF += edfCoef[t.cstart+c]
 		}

@@ -186,9 +186,6 @@ func (f *fitter) run(ctx context.Context) (*Document, error) {
 		return nil, fmt.Errorf("model %q: %w", name, err)
 	}
 	f.progress("summary", sum.rowsRead, math.NaN())
-	if n := len(sum.dropped); n > 0 {
-		f.warn = append(f.warn, fmt.Sprintf("%d of %d rows dropped for missing values (%s)", sum.rowsRead-sum.rowsUsed, sum.rowsRead, droppedText(sum.dropped)))
-	}
 	d, err := buildDesign(m, sum)
 	if err != nil {
 		return nil, fmt.Errorf("model %q: %w", name, err)

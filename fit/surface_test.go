@@ -65,3 +65,38 @@ func TestSurfaceRecoversKnownFunction(t *testing.T) {
 		})
 	}
 }
+
+// A surface sharing a column with a curve holds only the interaction, so the
+// model stays identifiable (the spec in DESIGN.md has such a pair), and the
+// interaction surface is near zero when the truth is additive.
+func TestInteractionSurfaceBesideCurves(t *testing.T) {
+	rng := rand.New(rand.NewPCG(4, 4))
+	const n = 1500
+	x1, x2, y := make([]float64, n), make([]float64, n), make([]float64, n)
+	for i := range y {
+		x1[i], x2[i] = rng.Float64(), rng.Float64()
+		y[i] = math.Sin(3*x1[i]) + x2[i]*x2[i] + 0.2*rng.NormFloat64()
+	}
+	spec := curveSpec(fit.Gaussian, fit.Identity, curve("x1", 8), curve("x2", 8),
+		fit.TermSpec{Kind: fit.Surface, Columns: []string{"x1", "x2"}, Basis: fit.PSpline, Knots: fit.EvenKnots, Size: []int{5, 5}})
+	doc, err := fit.Fit(context.Background(), spec, &fit.Table{Numeric: map[string][]float64{"x1": x1, "x2": x2, "y": y}}, fit.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := doc.Terms[2]
+	if !s.Interaction {
+		t.Fatal("the surface should be an interaction-only term")
+	}
+	big := 0.0
+	for i := range s.SurfaceGrid.Fit {
+		for j := range s.SurfaceGrid.Fit[i] {
+			big = math.Max(big, math.Abs(s.SurfaceGrid.Fit[i][j]))
+		}
+	}
+	// The truth has no interaction: the surface stays small next to the
+	// main effects (ranges about 1).
+	if big > 0.15 || s.EDF > 5 {
+		t.Errorf("interaction surface reaches %.3f with edf %.2f; want near zero", big, s.EDF)
+	}
+	t.Logf("interaction edf %.2f, max |fit| %.3f", s.EDF, big)
+}

@@ -60,3 +60,27 @@ func DifferencePenalty(n, order int) *mat.SymDense {
 	s.SymOuterK(1, d.T())
 	return s
 }
+
+// Integrals returns ∫ B_i(x) dx over the curve's interval [Lo, Hi] for each
+// basis function (two-point Gauss–Legendre per knot interval, exact for
+// cubics). A coefficient vector a with Σ a_i ∫B_i = 0 gives a curve with
+// zero mean over the interval.
+func (c *Curve) Integrals() []float64 {
+	b := c.B
+	out := make([]float64, b.Len())
+	vals := make([]float64, b.Order)
+	for j := b.Order - 1; j < b.Len(); j++ {
+		lo, hi := math.Max(b.Knots[j], c.Lo), math.Min(b.Knots[j+1], c.Hi)
+		if !(hi > lo) {
+			continue
+		}
+		half, mid := (hi-lo)/2, (hi+lo)/2
+		for _, g := range gauss2 {
+			first := b.Eval(mid+half*g, 0, vals)
+			for k, v := range vals {
+				out[first+k] += half * v
+			}
+		}
+	}
+	return out
+}
