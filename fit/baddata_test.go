@@ -101,15 +101,23 @@ func TestBadData(t *testing.T) {
 			wantErr: "6 usable rows but the model has 10 coefficients",
 		},
 		{
-			name:    "too few distinct values for the size",
-			spec:    curveSpec(fit.Gaussian, fit.Identity, curve("x", 8)),
-			data:    &fit.Table{Numeric: map[string][]float64{"x": withY(func(c []float64) { for i := range c { c[i] = float64(i % 4) } }), "y": y}},
+			name: "too few distinct values for the size",
+			spec: curveSpec(fit.Gaussian, fit.Identity, curve("x", 8)),
+			data: &fit.Table{Numeric: map[string][]float64{"x": withY(func(c []float64) {
+				for i := range c {
+					c[i] = float64(i % 4)
+				}
+			}), "y": y}},
 			wantErr: "size 8 needs at least 8 distinct covariate values and the data have 4",
 		},
 		{
 			name: "collinear linear columns are aliased",
 			spec: curveSpec(fit.Gaussian, fit.Identity, linear("x"), linear("x2")),
-			data: &fit.Table{Numeric: map[string][]float64{"x": x, "x2": withY(func(c []float64) { for i := range c { c[i] = 3*x[i] - 1 } }), "y": y}},
+			data: &fit.Table{Numeric: map[string][]float64{"x": x, "x2": withY(func(c []float64) {
+				for i := range c {
+					c[i] = 3*x[i] - 1
+				}
+			}), "y": y}},
 			check: func(t *testing.T, doc *fit.Document) {
 				if doc.Terms[1].Estimate != nil || len(doc.Terms[1].Aliased) != 1 {
 					t.Errorf("x2 should be aliased: %+v", doc.Terms[1])
@@ -133,9 +141,13 @@ func TestBadData(t *testing.T) {
 			wantErr: "separation",
 		},
 		{
-			name:    "every row missing",
-			spec:    curveSpec(fit.Gaussian, fit.Identity, curve("x", 8)),
-			data:    &fit.Table{Numeric: map[string][]float64{"x": withY(func(c []float64) { for i := range c { c[i] = math.NaN() } }), "y": y}},
+			name: "every row missing",
+			spec: curveSpec(fit.Gaussian, fit.Identity, curve("x", 8)),
+			data: &fit.Table{Numeric: map[string][]float64{"x": withY(func(c []float64) {
+				for i := range c {
+					c[i] = math.NaN()
+				}
+			}), "y": y}},
 			wantErr: "none of the 200 rows is usable: 200 missing x",
 		},
 		{
@@ -153,7 +165,11 @@ func TestBadData(t *testing.T) {
 		{
 			name: "constant response",
 			spec: curveSpec(fit.Gaussian, fit.Identity, curve("x", 8)),
-			data: &fit.Table{Numeric: map[string][]float64{"x": x, "y": withY(func(c []float64) { for i := range c { c[i] = 4 } })}},
+			data: &fit.Table{Numeric: map[string][]float64{"x": x, "y": withY(func(c []float64) {
+				for i := range c {
+					c[i] = 4
+				}
+			})}},
 			check: func(t *testing.T, doc *fit.Document) {
 				if doc.DevianceExplained != 0 || math.IsNaN(doc.Scale) {
 					t.Errorf("explained %g scale %g", doc.DevianceExplained, doc.Scale)

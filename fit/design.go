@@ -42,19 +42,19 @@ type termDesign struct {
 	levels  []string       // factor: sorted levels; the first is the reference
 	index   map[string]int // level → position in levels
 
-	cons     []float64 // raw constraint rows (nCons × width), before centring
-	nCons    int
-	rawPens  [][]float64 // raw penalties (width × width)
-	z        []float64   // width × q null-space basis (nil: identity on active)
-	active   []int       // unpenalised terms: raw columns kept (others aliased)
+	cons    []float64 // raw constraint rows (nCons × width), before centring
+	nCons   int
+	rawPens [][]float64 // raw penalties (width × width)
+	z       []float64   // width × q null-space basis (nil: identity on active)
+	active  []int       // unpenalised terms: raw columns kept (others aliased)
 	// interaction marks a surface whose margins are centred (each margin's
 	// function integrates to zero over its range), so that it holds only
 	// the interaction and curves or lines of its columns stay identifiable.
 	interaction bool
-	aliased  []string    // names of raw columns dropped as aliased
-	q        int         // constrained coefficients
-	cstart   int         // first constrained coefficient
-	penStart int         // first penalty index in the model
+	aliased     []string // names of raw columns dropped as aliased
+	q           int      // constrained coefficients
+	cstart      int      // first constrained coefficient
+	penStart    int      // first penalty index in the model
 }
 
 // design is the whole model matrix: an intercept column then each term.

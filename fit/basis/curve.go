@@ -122,7 +122,7 @@ func NewPSpline(lo, hi float64, size int) (*Curve, error) {
 // extended periodically by three knots at each end, with the last three
 // coefficients tied to the first three (the periodic B-spline construction,
 // de Boor 1978, ch. IX; Eilers & Marx 1996 §8 for its penalised use). The
-// penalty is ∫_a^b f''(x)² dx exactly. knots holds a = κ₀ < … < κ_K = b; the
+// penalty is ∫_a^b f”(x)² dx exactly. knots holds a = κ₀ < … < κ_K = b; the
 // basis has dimension K. Values outside [a, b) are wrapped into it.
 func NewCyclic(knots []float64) (*Curve, error) {
 	k := len(knots) - 1
