@@ -117,6 +117,11 @@ type TermResult struct {
 	// Aliased lists coefficients fixed at zero because their columns were
 	// linear combinations of earlier ones (factor levels by name).
 	Aliased []string `json:"aliased,omitempty"`
+	// Inference holds tests about a curve or surface (see inference.go).
+	Inference *TermInference `json:"inference,omitempty"`
+	// Concurvity says how far the term can be mimicked by the others (see
+	// concurvity.go).
+	Concurvity *Concurvity `json:"concurvity,omitempty"`
 }
 
 // CurveGrid is a curve tabulated on evenly spaced points.

@@ -195,6 +195,12 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 		}
 		doc.Terms = append(doc.Terms, tr)
 	}
+	if err := f.inferTerms(doc, st, v); err != nil {
+		return nil, err
+	}
+	if err := f.concurvity(doc, st); err != nil {
+		return nil, err
+	}
 	doc.Warnings = f.warn
 	return doc, nil
 }
