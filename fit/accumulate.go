@@ -22,6 +22,9 @@ const (
 	// block by block (Wood, Goude & Shaw 2015, JRSS-C 64(1), §2): slower,
 	// but never squares the condition number.
 	householder
+	// evaluateOnly computes the deviance and fit statistics at β without
+	// accumulating a working model.
+	evaluateOnly
 )
 
 // passResult holds what one pass over the rows produced at the current β.
@@ -37,6 +40,9 @@ type passResult struct {
 	invalid  bool    // a mean left the family's range
 	maxEta   float64 // largest |η| (for separation checks)
 	boundary int     // rows with μ within 1e-9 of a boundary (binomial)
+	// lagNum and lagDen give the lag-one autocorrelation of the Pearson
+	// residuals in row order, Σ r_i r_{i−1} / Σ r_i².
+	lagNum, lagDen float64
 
 	xtwx   []float64 // p×p, upper triangle (crossProducts)
 	xtwz   []float64
@@ -87,7 +93,8 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 	runs := ps.d.runs()
 	var idx []int32
 	var val []float64
-	var eta, wz, ww []float64
+	var eta, wz, ww, resid []float64
+	prevResid := math.NaN()
 	err := src.Scan(ctx, ps.m.need, func(b *Block) error {
 		var err error
 		keep, err = ps.m.filter.keep(b, keep, nil)
@@ -98,7 +105,7 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 		if cap(idx) < k*stride {
 			idx = make([]int32, k*stride)
 			val = make([]float64, k*stride)
-			eta, wz, ww = make([]float64, k), make([]float64, k), make([]float64, k)
+			eta, wz, ww, resid = make([]float64, k), make([]float64, k), make([]float64, k), make([]float64, k)
 		}
 		idx, val = idx[:k*stride], val[:k*stride]
 		// Model matrix rows and per-row statistics, split across workers.
@@ -117,7 +124,7 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 					errs[w] = err
 					return
 				}
-				ps.rowStats(b, keep, lo, hi, idx, val, eta, wz, ww, part)
+				ps.rowStats(b, keep, lo, hi, idx, val, eta, wz, ww, resid, part)
 				if ps.mode == crossProducts {
 					accumulateCross(part, runs, p, stride, lo, hi, idx, val, wz, ww)
 				}
@@ -128,6 +135,18 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 			if err != nil {
 				return err
 			}
+		}
+		// Lag-one residual products, in row order across workers and blocks.
+		for _, r := range resid[:k] {
+			if math.IsNaN(r) {
+				prevResid = r
+				continue
+			}
+			if !math.IsNaN(prevResid) {
+				res.lagNum += prevResid * r
+			}
+			res.lagDen += r * r
+			prevResid = r
 		}
 		if qr != nil {
 			qr.add(stride, k, idx, val, wz, ww)
@@ -173,7 +192,7 @@ func (ps *passState) run(ctx context.Context, src Source) (*passResult, error) {
 // rowStats computes η, μ, the deviance contributions and the working
 // response z and weight W = w (dμ/dη)²/V(μ) for rows lo..hi of a block
 // (McCullagh & Nelder 1989, §2.5). wz holds z and ww holds W.
-func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val []float64, eta, wz, ww []float64, part *passResult) {
+func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val []float64, eta, wz, ww, resid []float64, part *passResult) {
 	m, fam, link := ps.m, ps.fam, ps.link
 	stride := ps.d.nnz
 	y := b.Numeric[m.spec.Response]
@@ -212,14 +231,14 @@ func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val
 			}
 			if !link.Valid(e) {
 				part.invalid = true
-				ww[i], wz[i] = 0, 0
+				ww[i], wz[i], resid[i] = 0, 0, math.NaN()
 				continue
 			}
 			mu = link.Inverse(e)
 		}
 		if !fam.ValidMean(mu) {
 			part.invalid = true
-			ww[i], wz[i] = 0, 0
+			ww[i], wz[i], resid[i] = 0, 0, math.NaN()
 			continue
 		}
 		eta[i] = e
@@ -228,6 +247,7 @@ func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val
 		part.dev += wi * fam.UnitDeviance(yi, mu)
 		v := fam.Variance(mu)
 		part.pearson += wi * (yi - mu) * (yi - mu) / v
+		resid[i] = (yi - mu) * math.Sqrt(wi/v)
 		part.logLik += fam.LogLik(yi, mu, wi, ps.phi)
 		if ps.nullMu != nil {
 			part.nullDev += wi * fam.UnitDeviance(yi, ps.nullMu(oi))

@@ -100,3 +100,35 @@ func TestBandCoverageSimulation(t *testing.T) {
 		})
 	}
 }
+
+// The lag-one autocorrelation of the residuals is reported in every fit:
+// near 0 for independent errors, near ρ for AR(1) errors with a smooth mean
+// (the residuals of a well-fitted smooth inherit the error correlation;
+// common practice (no source)).
+func TestResidualLag1Reported(t *testing.T) {
+	rng := rand.New(rand.NewPCG(12, 1))
+	const n = 3000
+	x, yInd, yAR := make([]float64, n), make([]float64, n), make([]float64, n)
+	e := 0.0
+	for i := range x {
+		x[i] = float64(i) / n
+		mean := math.Sin(2 * math.Pi * x[i])
+		e = 0.8*e + math.Sqrt(1-0.64)*rng.NormFloat64()
+		yInd[i] = mean + rng.NormFloat64()
+		yAR[i] = mean + e
+	}
+	spec := curveSpec(fit.Gaussian, fit.Identity, curve("x", 10))
+	for _, tc := range []struct {
+		name   string
+		y      []float64
+		lo, hi float64
+	}{{"independent", yInd, -0.06, 0.06}, {"ar1", yAR, 0.7, 0.86}} {
+		doc, err := fit.Fit(context.Background(), spec, &fit.Table{Numeric: map[string][]float64{"x": x, "y": tc.y}}, fit.Options{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if doc.ResidualLag1 < tc.lo || doc.ResidualLag1 > tc.hi {
+			t.Errorf("%s: residual lag-one autocorrelation %.3f, want in [%g, %g]", tc.name, doc.ResidualLag1, tc.lo, tc.hi)
+		}
+	}
+}

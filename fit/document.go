@@ -24,6 +24,11 @@ type Document struct {
 	LogLikelihood     float64      `json:"log_likelihood"`
 	AIC               float64      `json:"aic"`
 	Criterion         Criterion    `json:"criterion"`
+	// ResidualLag1 is the lag-one autocorrelation of the Pearson residuals
+	// in row order: near 0 for independent errors; well above 0 on
+	// time-ordered sensor rows means the bands are too narrow unless the
+	// model accounts for serial correlation.
+	ResidualLag1 float64 `json:"residual_lag1"`
 	Intercept         Estimate     `json:"intercept"`
 	Terms             []TermResult `json:"terms"`
 	Convergence       Convergence  `json:"convergence"`

@@ -42,28 +42,13 @@ func (f *fitter) nullMean(ctx context.Context, sum *summary) (func(float64) floa
 	return func(off float64) float64 { return link.Inverse(b0 + off) }, nil
 }
 
-// finalStats returns the deviance, Pearson statistic and log-likelihood at
-// the final β. For the gaussian family with identity link one solve is the
-// fit and these follow from its residual sum of squares (computed on the
-// centred working response, so without cancellation); otherwise they come
-// from the pass that evaluated the last accepted step.
-func (f *fitter) finalStats(st *pirlsState, sum *summary) *passResult {
-	if st.res != nil {
-		return st.res
-	}
-	rss := st.eval.sol.rss
-	n := float64(sum.rowsUsed)
-	phi := rss / n
-	res := &passResult{n: sum.rowsUsed, sumW: sum.sumW, dev: rss, pearson: rss}
-	// log L = −½ Σ [w(y−μ)²/φ + log(2πφ/w)] at φ = D/n.
-	res.logLik = -0.5 * (rss/phi + n*math.Log(2*math.Pi*phi) - sum.sumLogW)
-	return res
-}
-
 // document assembles the fit document.
 func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*Document, error) {
 	m, d := f.m, st.d
-	res := f.finalStats(st, sum)
+	// The last pass evaluated the deviance, Pearson statistic,
+	// log-likelihood and residual autocorrelation at the final β (for the
+	// gaussian family with identity link, a dedicated evaluation pass).
+	res := st.res
 	if res.invalid {
 		return nil, fmt.Errorf("the final coefficients give means outside the %s family's range", m.fam.Name())
 	}
@@ -147,6 +132,9 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	acc := "cross-products"
 	if f.mode == householder {
 		acc = "householder"
+	}
+	if res.lagDen > 0 {
+		doc.ResidualLag1 = res.lagNum / res.lagDen
 	}
 	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
 	lambda := st.sel.lambdaAt(st.rho)

@@ -44,7 +44,7 @@ type Options struct {
 // Progress reports one finished pass over the rows.
 type Progress struct {
 	Pass  int
-	Stage string // "summary", "iteration" or "null model"
+	Stage string // "summary", "iteration", "null model" or "final"
 	Rows  int
 	// Deviance is the deviance at the pass's coefficients (NaN for the
 	// summary pass).
@@ -272,7 +272,15 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		newBeta := sr.eval.sol.beta
 		lambda := st.sel.lambdaAt(st.rho)
 		if linear {
+			// One solve is the fit; one more pass evaluates it (deviance,
+			// residual autocorrelation) at exactly this β.
 			st.beta, st.conv, st.relChg = newBeta, true, 0
+			phi := sr.eval.sol.rss / float64(sum.rowsUsed)
+			if res, err = f.pass(ctx, st, st.beta, evaluateOnly, nil, phi); err != nil {
+				return nil, err
+			}
+			f.progress("final", res.n, res.dev)
+			st.res = res
 			break
 		}
 		// Evaluate the new β; halve the step while the penalised deviance

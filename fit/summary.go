@@ -75,7 +75,6 @@ type summary struct {
 	rowsRead int
 	rowsUsed int
 	sumW     float64
-	sumLogW  float64 // Σ log w over rows with w > 0
 	// dropped counts rows dropped because a column was missing (first
 	// missing column of the row).
 	dropped map[string]int
@@ -201,9 +200,6 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 				wi = w[r]
 				if wi < 0 {
 					return &RowError{Line: lineOf(b, r, s.rowsRead), Column: m.spec.Weights, Err: fmt.Errorf("prior weights cannot be negative (got %g)", wi)}
-				}
-				if wi > 0 {
-					s.sumLogW += math.Log(wi)
 				}
 			}
 			if err := m.fam.CheckResponse(y[r], wi); err != nil {

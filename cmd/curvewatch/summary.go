@@ -56,6 +56,11 @@ func writeOverall(b *strings.Builder, doc *fit.Document) {
 	}
 	row("edf", "%.2f in total, for %s", doc.EDFTotal, plural(len(doc.Coefficients), "coefficient", "coefficients"))
 	row("aic", "%.1f", doc.AIC)
+	lag := fmt.Sprintf("lag-one autocorrelation %+.2f in row order", doc.ResidualLag1)
+	if doc.ResidualLag1 > 0.3 {
+		lag += " · rows look serially correlated, so the bands are too narrow: consider serial: in the spec"
+	}
+	row("residuals", "%s", lag)
 	row("smoothing", "%s", criterionText(doc))
 	passes := plural(conv.Passes, "pass", "passes") + " over the rows"
 	if conv.Converged {
