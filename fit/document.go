@@ -137,12 +137,16 @@ type CurveGrid struct {
 }
 
 // SurfaceGrid is a surface tabulated on a rectangular grid; Fit[i][j] is at
-// (X1[i], X2[j]).
+// (X1[i], X2[j]). Far[i][j] marks points farther than FarDistance from every
+// observation, in units of each column's data range: values there are
+// extrapolations and should not be read as findings.
 type SurfaceGrid struct {
-	X1  []float64   `json:"x1"`
-	X2  []float64   `json:"x2"`
-	Fit [][]float64 `json:"fit"`
-	SE  [][]float64 `json:"se"`
+	X1          []float64   `json:"x1"`
+	X2          []float64   `json:"x2"`
+	Fit         [][]float64 `json:"fit"`
+	SE          [][]float64 `json:"se"`
+	Far         [][]bool    `json:"far"`
+	FarDistance float64     `json:"far_distance"`
 }
 
 // BasisRecord is a curve or surface basis as stored in the document. Each

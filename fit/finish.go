@@ -138,7 +138,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	}
 	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
 	lambda := st.sel.lambdaAt(st.rho)
-	for _, t := range d.terms {
+	for ti, t := range d.terms {
 		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased, Interaction: t.interaction}
 		for c := 0; c < t.q; c++ {
 			tr.EDF += edfCoef[t.cstart+c]
@@ -168,6 +168,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 				tr.Grid = curveGrid(t, tr.Basis, beta, v, pc, f.opt.GridPoints)
 			} else {
 				tr.SurfaceGrid = surfaceGrid(t, tr.Basis, beta, v, pc, f.opt.SurfaceGridPoints)
+				markFar(tr.SurfaceGrid, sum.pairs[ti], tr.Range)
 			}
 		case Linear:
 			if t.q == 1 {
@@ -296,4 +297,35 @@ func surfaceGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points 
 		g.SE = append(g.SE, seRow)
 	}
 	return g
+}
+
+// farDistance is the distance, in units of each column's data range, beyond
+// which a surface grid point counts as far from the data (as a rule of
+// thumb, a tenth of the range: common practice (no source)).
+const farDistance = 0.1
+
+// markFar flags the grid points with no sampled observation within
+// farDistance (Euclidean, each axis scaled by its data range).
+func markFar(g *SurfaceGrid, pairs *pairSample, ranges [][2]float64) {
+	g.FarDistance = farDistance
+	g.Far = make([][]bool, len(g.X1))
+	s1 := ranges[0][1] - ranges[0][0]
+	s2 := ranges[1][1] - ranges[1][0]
+	for i, a := range g.X1 {
+		g.Far[i] = make([]bool, len(g.X2))
+		for j, b := range g.X2 {
+			near := false
+			if pairs != nil {
+				for k := range pairs.x1 {
+					d1 := (pairs.x1[k] - a) / s1
+					d2 := (pairs.x2[k] - b) / s2
+					if d1*d1+d2*d2 <= farDistance*farDistance {
+						near = true
+						break
+					}
+				}
+			}
+			g.Far[i][j] = !near
+		}
+	}
 }

@@ -21,7 +21,7 @@ import (
 // Options tune a fit. The zero value gives the defaults.
 type Options struct {
 	// GridPoints is how many points tabulate each curve (default 200);
-	// surfaces use a square grid of SurfaceGridPoints (default 30) a side.
+	// surfaces use a square grid of SurfaceGridPoints (default 40) a side.
 	GridPoints        int
 	SurfaceGridPoints int
 	// MaxIterations bounds the PIRLS steps (default 100).
@@ -121,7 +121,7 @@ func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
 		}
 	}
 	opt.GridPoints = cmpOr(opt.GridPoints, 200)
-	opt.SurfaceGridPoints = cmpOr(opt.SurfaceGridPoints, 30)
+	opt.SurfaceGridPoints = cmpOr(opt.SurfaceGridPoints, 40)
 	opt.MaxIterations = cmpOr(opt.MaxIterations, 100)
 	if opt.Tolerance == 0 {
 		opt.Tolerance = 1e-10

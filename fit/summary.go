@@ -82,6 +82,31 @@ type summary struct {
 	levels  map[string]map[string]int
 	// yMean is the weighted mean response, for the null model.
 	yMean float64
+	// pairs holds, per surface term index, a reservoir sample of its two
+	// covariates (for masking grid cells far from any data).
+	pairs map[int]*pairSample
+}
+
+// pairSample is a fixed-size reservoir sample of (x1, x2) pairs
+// (Vitter 1985, algorithm R).
+type pairSample struct {
+	seen int
+	x1   []float64
+	x2   []float64
+}
+
+// maxPairSample bounds a surface's pair sample.
+const maxPairSample = 10_000
+
+func (p *pairSample) add(a, b float64, rng *rand.Rand) {
+	p.seen++
+	if len(p.x1) < maxPairSample {
+		p.x1, p.x2 = append(p.x1, a), append(p.x2, b)
+		return
+	}
+	if j := rng.IntN(p.seen); j < maxPairSample {
+		p.x1[j], p.x2[j] = a, b
+	}
 }
 
 // rowFilter decides which rows of a block a fit uses: those with every
@@ -159,7 +184,13 @@ func (e *RowError) Unwrap() error { return e.Err }
 // with missing values, checks response, weight and offset values, and
 // collects what knots, centring and factor levels need.
 func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error) {
-	s := &summary{dropped: map[string]int{}, numeric: map[string]*columnStats{}, levels: map[string]map[string]int{}}
+	s := &summary{dropped: map[string]int{}, numeric: map[string]*columnStats{}, levels: map[string]map[string]int{}, pairs: map[int]*pairSample{}}
+	for i, t := range m.spec.Terms {
+		if t.Kind == Surface {
+			s.pairs[i] = &pairSample{}
+		}
+	}
+	pairRNG := rand.New(rand.NewPCG(3, 4))
 	for _, c := range m.covariates {
 		s.numeric[c] = &columnStats{}
 	}
@@ -214,6 +245,16 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 			st, col := s.numeric[name], b.Numeric[name]
 			for _, r := range keep {
 				st.add(col[r], rng)
+			}
+		}
+		for i, t := range m.spec.Terms {
+			ps := s.pairs[i]
+			if ps == nil {
+				continue
+			}
+			c1, c2 := b.Numeric[t.Columns[0]], b.Numeric[t.Columns[1]]
+			for _, r := range keep {
+				ps.add(c1[r], c2[r], pairRNG)
 			}
 		}
 		for name, lv := range s.levels {
