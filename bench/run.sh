@@ -25,7 +25,7 @@ echo "== numpy XᵀX, n = 1e6, p = $p (best of 5) =="
 numpy_s=$(env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE "$py" - "$p" <<'PY'
 import sys, time
 import numpy as np
-p = int(sys.argv[1])
+p = int(float(sys.argv[1]))
 x = np.random.default_rng(1).standard_normal((1_000_000, p))
 best = float("inf")
 for _ in range(5):

@@ -277,6 +277,7 @@ func (ps *passState) rowStats(b *Block, keep []int, lo, hi int, idx []int32, val
 func accumulateCross(part *passResult, runs []run, p, stride, lo, hi int, idx []int32, val []float64, wz, ww []float64) {
 	a := part.xtwx
 	xz := part.xtwz
+	act := make([]run, 0, len(runs))
 	for i := lo; i < hi; i++ {
 		wi := ww[i]
 		if wi == 0 {
@@ -289,11 +290,22 @@ func accumulateCross(part *passResult, runs []run, p, stride, lo, hi int, idx []
 		for s, cs := range ri {
 			xz[cs] += wi * rv[s] * zi
 		}
-		for ra, runA := range runs {
+		// Only runs with a non-zero entry take part (a curve per level of a
+		// factor is zero on the other levels' rows).
+		act = act[:0]
+		for _, r := range runs {
+			for _, v := range rv[r.entry : r.entry+r.length] {
+				if v != 0 {
+					act = append(act, r)
+					break
+				}
+			}
+		}
+		for ra, runA := range act {
 			sa := int(ri[runA.entry])
 			va := rv[runA.entry : runA.entry+runA.length]
-			for rb := ra; rb < len(runs); rb++ {
-				runB := runs[rb]
+			for rb := ra; rb < len(act); rb++ {
+				runB := act[rb]
 				sb := int(ri[runB.entry])
 				vb := rv[runB.entry : runB.entry+runB.length]
 				for k, x := range va {
@@ -370,6 +382,17 @@ func (q *qrAccumulator) add(stride, k int, idx []int32, val []float64, wz, ww []
 		row[q.p] = sw * wz[i]
 		q.rows++
 	}
+}
+
+// addDense folds in one dense row x (length p) with response z.
+func (q *qrAccumulator) addDense(x []float64, z float64) {
+	if q.rows == len(q.buf)/q.cols {
+		q.fold()
+	}
+	row := q.buf[q.rows*q.cols : (q.rows+1)*q.cols]
+	copy(row, x)
+	row[q.p] = z
+	q.rows++
 }
 
 // fold triangularises the buffer, leaving R in its first rows.

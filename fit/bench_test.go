@@ -64,3 +64,43 @@ func BenchmarkFit(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkTerms times the richer terms against a plain curve at the same
+// n: surfaces of size [5,5] and [10,10], and a curve per site for 50 sites.
+func BenchmarkTerms(b *testing.B) {
+	for _, n := range []int{100_000, 1_000_000} {
+		rng := rand.New(rand.NewPCG(7, uint64(n)))
+		x1, x2, y := make([]float64, n), make([]float64, n), make([]float64, n)
+		site := make([]string, n)
+		for i := range y {
+			x1[i], x2[i] = rng.Float64(), rng.Float64()
+			site[i] = fmt.Sprintf("S%02d", i%50)
+			y[i] = math.Sin(3*x1[i])*math.Cos(2*x2[i]) + float64(i%50)/50 + 0.3*rng.NormFloat64()
+		}
+		data := &fit.Table{Numeric: map[string][]float64{"x1": x1, "x2": x2, "y": y}, Text: map[string][]string{"site": site}}
+		cases := []struct {
+			name string
+			spec *fit.Spec
+		}{
+			{"plain-curve", curveSpec(fit.Gaussian, fit.Identity, curve("x1", 10))},
+			{"surface-5x5", curveSpec(fit.Gaussian, fit.Identity, fit.TermSpec{Kind: fit.Surface, Columns: []string{"x1", "x2"}, Basis: fit.PSpline, Knots: fit.EvenKnots, Size: []int{5, 5}})},
+			{"surface-10x10", curveSpec(fit.Gaussian, fit.Identity, fit.TermSpec{Kind: fit.Surface, Columns: []string{"x1", "x2"}, Basis: fit.PSpline, Knots: fit.EvenKnots, Size: []int{10, 10}})},
+		}
+		if n == 100_000 {
+			cases = append(cases, struct {
+				name string
+				spec *fit.Spec
+			}{"curve-per-site-50", curveSpec(fit.Gaussian, fit.Identity,
+				fit.TermSpec{Kind: fit.Curve, Columns: []string{"x1"}, Basis: fit.Cubic, Knots: fit.QuantileKnots, Size: []int{10}, By: "site"}, factor("site"))})
+		}
+		for _, c := range cases {
+			b.Run(fmt.Sprintf("%s/n=%d", c.name, n), func(b *testing.B) {
+				for b.Loop() {
+					if _, err := fit.Fit(context.Background(), c.spec, data, fit.Options{}); err != nil {
+						b.Fatal(err)
+					}
+				}
+			})
+		}
+	}
+}

@@ -47,3 +47,31 @@ func TestCyclicCurveFit(t *testing.T) {
 		}
 	}
 }
+
+// A surface with a cyclic margin joins across the period: at every value of
+// the other column, the surface at hour 0 equals the surface at hour 24.
+func TestSurfaceWithCyclicMargin(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	const n = 1500
+	hour, temp, y := make([]float64, n), make([]float64, n), make([]float64, n)
+	for i := range y {
+		hour[i], temp[i] = 24*rng.Float64(), 25*rng.Float64()
+		y[i] = math.Sin(2*math.Pi*hour[i]/24)*temp[i]/10 + 0.2*rng.NormFloat64()
+	}
+	spec := curveSpec(fit.Gaussian, fit.Identity, fit.TermSpec{Kind: fit.Surface, Columns: []string{"hour", "temp"},
+		Bases: []fit.Basis{fit.Cyclic, fit.PSpline}, Periods: [][]float64{{0, 24}, nil}, Knots: fit.EvenKnots, Size: []int{8, 5}})
+	doc, err := fit.Fit(context.Background(), spec, &fit.Table{Numeric: map[string][]float64{"hour": hour, "temp": temp, "y": y}}, fit.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := doc.Terms[0].SurfaceGrid
+	last := len(g.X1) - 1
+	if g.X1[0] != 0 || g.X1[last] != 24 {
+		t.Fatalf("hour grid %g..%g, want the period 0..24", g.X1[0], g.X1[last])
+	}
+	for j := range g.X2 {
+		if d := math.Abs(g.Fit[0][j] - g.Fit[last][j]); d > 1e-9 {
+			t.Errorf("temp %.2f: surface differs by %g between hour 0 and 24", g.X2[j], d)
+		}
+	}
+}

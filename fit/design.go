@@ -51,10 +51,17 @@ type termDesign struct {
 	// function integrates to zero over its range), so that it holds only
 	// the interaction and curves or lines of its columns stay identifiable.
 	interaction bool
-	aliased     []string // names of raw columns dropped as aliased
-	q           int      // constrained coefficients
-	cstart      int      // first constrained coefficient
-	penStart    int      // first penalty index in the model
+	// uncentred terms get no sum-to-zero constraint: interaction surfaces
+	// (their margins are centred instead) and shrunk factors (their ridge
+	// penalty identifies every level).
+	uncentred bool
+	// byLevel, on a curve expanded from a `by` factor, is the level whose
+	// rows the curve applies to (byColumn names the factor).
+	byColumn, byLevel string
+	aliased           []string // names of raw columns dropped as aliased
+	q                 int      // constrained coefficients
+	cstart            int      // first constrained coefficient
+	penStart          int      // first penalty index in the model
 }
 
 // design is the whole model matrix: an intercept column then each term.
@@ -63,6 +70,8 @@ type design struct {
 	p     int // raw columns, intercept included
 	nnz   int // non-zero entries per row, intercept included
 	pc    int // constrained coefficients
+	// warnings are remarks about the model for the fit document.
+	warnings []string
 }
 
 // penalised reports whether the term carries penalties.
@@ -72,24 +81,40 @@ func (t *termDesign) penalised() bool { return len(t.rawPens) > 0 }
 func buildDesign(m *modelSetup, s *summary) (*design, error) {
 	d := &design{p: 1, nnz: 1}
 	for i, ts := range m.spec.Terms {
-		t := &termDesign{spec: ts, name: ts.Name(), start: d.p}
-		where := fmt.Sprintf("term %q", t.name)
+		where := fmt.Sprintf("term %q", ts.Name())
 		if ts.Line > 0 {
-			where = fmt.Sprintf("term %q (spec line %d)", t.name, ts.Line)
+			where = fmt.Sprintf("term %q (spec line %d)", ts.Name(), ts.Line)
 		}
+		if ts.Kind == Curve && ts.By != "" {
+			// One curve per level of the by factor, each centred over its
+			// own rows with its own smoothing strength.
+			if !slices.ContainsFunc(m.spec.Terms, func(o TermSpec) bool { return o.Kind == Factor && o.Columns[0] == ts.By }) {
+				d.warnings = append(d.warnings, fmt.Sprintf("curves of %s by %s are centred within each level, so the levels' differences in mean are not modelled; add `factor: %s` as a term", ts.Columns[0], ts.By, ts.By))
+			}
+			lv := s.levels[ts.By]
+			if len(lv) == 0 {
+				return nil, fmt.Errorf("%s: the by column %q has no levels in the used rows", where, ts.By)
+			}
+			for _, level := range sortLevels(lv) {
+				t := &termDesign{spec: ts, name: ts.Name() + "[" + ts.By + "=" + level + "]", start: d.p, byColumn: ts.By, byLevel: level}
+				if err := curveDesign(t, ts, s); err != nil {
+					return nil, fmt.Errorf("%s: %w", where, err)
+				}
+				if lv[level] < t.width {
+					return nil, fmt.Errorf("%s: level %q of %q has %d rows, fewer than the curve's %d coefficients; lower size or merge levels", where, level, ts.By, lv[level], t.width)
+				}
+				d.p += t.width
+				d.nnz += t.nnz
+				d.terms = append(d.terms, t)
+			}
+			continue
+		}
+		t := &termDesign{spec: ts, name: ts.Name(), start: d.p}
 		switch ts.Kind {
 		case Curve:
-			c, err := curveBasis(ts.Basis, ts.Knots, sizeAt(ts.Size, 0), s.numeric[ts.Columns[0]], ts.Period)
-			if err != nil {
+			if err := curveDesign(t, ts, s); err != nil {
 				return nil, fmt.Errorf("%s: %w", where, err)
 			}
-			t.curve = c
-			t.width, t.nnz = c.Len(), c.B.Order
-			if c.Constraints != nil {
-				r, _ := c.Constraints.Dims()
-				t.cons, t.nCons = c.Constraints.RawMatrix().Data, r
-			}
-			t.rawPens = [][]float64{symFull(c.Penalty)}
 		case Surface:
 			if err := surfaceDesign(t, ts, s, sharesColumn(m.spec.Terms, i)); err != nil {
 				return nil, fmt.Errorf("%s: %w", where, err)
@@ -116,6 +141,18 @@ func buildDesign(m *modelSetup, s *summary) (*design, error) {
 				t.index[l] = j
 			}
 			t.width, t.nnz = len(t.levels)-1, 1
+			if ts.Shrink {
+				// A random intercept per level: every level has a column and
+				// the ridge penalty λ Σ β² (an identity matrix) identifies
+				// them (the mixed-model view of a penalised fit: Wood 2017,
+				// §2.4; β ~ N(0, φ/λ)).
+				t.width, t.uncentred = len(t.levels), true
+				ident := make([]float64, t.width*t.width)
+				for j := 0; j < t.width; j++ {
+					ident[j*t.width+j] = 1
+				}
+				t.rawPens = [][]float64{ident}
+			}
 		default:
 			return nil, fmt.Errorf("%s: unknown kind %q", where, ts.Kind)
 		}
@@ -140,6 +177,22 @@ func sharesColumn(terms []TermSpec, i int) bool {
 		}
 	}
 	return false
+}
+
+// curveDesign builds a one-column curve's basis and raw layout.
+func curveDesign(t *termDesign, ts TermSpec, s *summary) error {
+	c, err := curveBasis(ts.Basis, ts.Knots, sizeAt(ts.Size, 0), s.numeric[ts.Columns[0]], ts.Period)
+	if err != nil {
+		return err
+	}
+	t.curve = c
+	t.width, t.nnz = c.Len(), c.B.Order
+	if c.Constraints != nil {
+		r, _ := c.Constraints.Dims()
+		t.cons, t.nCons = c.Constraints.RawMatrix().Data, r
+	}
+	t.rawPens = [][]float64{symFull(c.Penalty)}
+	return nil
 }
 
 func sizeAt(size []int, i int) int {
@@ -232,8 +285,7 @@ func placeKnots(rule KnotRule, size int, st *columnStats) ([]float64, error) {
 		knots[size-1] = st.max
 		return knots, nil
 	}
-	sorted := append([]float64(nil), st.sample...)
-	slices.Sort(sorted)
+	sorted := st.sortedSample()
 	uniq := slices.Compact(append([]float64(nil), sorted...))
 	if len(uniq) < size {
 		return nil, fmt.Errorf("size %d needs at least %d distinct covariate values and the data have %d; lower size or use knots: all", size, size, len(uniq))
@@ -289,7 +341,18 @@ func surfaceDesign(t *termDesign, ts TermSpec, s *summary, interaction bool) err
 		if size == 0 {
 			size = 5
 		}
-		c, err := curveBasis(ts.Basis, ts.Knots, size, s.numeric[ts.Columns[i]], nil)
+		kind, knots := ts.Basis, ts.Knots
+		if i < len(ts.Bases) && ts.Bases[i] != "" {
+			kind = ts.Bases[i]
+		}
+		var period []float64
+		if i < len(ts.Periods) {
+			period = ts.Periods[i]
+		}
+		if kind == PSpline && knots != EvenKnots {
+			knots = EvenKnots // P-spline margins always use even knots
+		}
+		c, err := curveBasis(kind, knots, size, s.numeric[ts.Columns[i]], period)
 		if err != nil {
 			return fmt.Errorf("margin %q: %w", ts.Columns[i], err)
 		}
@@ -318,7 +381,7 @@ func surfaceDesign(t *termDesign, ts TermSpec, s *summary, interaction bool) err
 		}
 	}
 	t.rawPens = [][]float64{p1, p2}
-	t.interaction = interaction
+	t.interaction, t.uncentred = interaction, interaction
 	if interaction {
 		// Margin centring c₁ᵀ⊗I and I⊗c₂ᵀ, with c_m the integrals of the
 		// margin's basis (the ANOVA decomposition of a tensor product: Gu
@@ -378,12 +441,20 @@ func (t *termDesign) fill(b *Block, keep []int, stride, off int, idx []int32, va
 	switch t.spec.Kind {
 	case Curve:
 		x := b.Numeric[t.spec.Columns[0]]
+		var by []string
+		if t.byColumn != "" {
+			by = b.Text[t.byColumn]
+		}
 		for i, r := range keep {
 			first := t.curve.Row(x[r], buf[:])
 			base := i*stride + off
+			other := by != nil && by[r] != t.byLevel
 			for k := 0; k < 4; k++ {
 				idx[base+k] = int32(t.start + first + k)
 				val[base+k] = buf[k]
+				if other {
+					val[base+k] = 0
+				}
 			}
 		}
 	case Surface:
@@ -414,11 +485,13 @@ func (t *termDesign) fill(b *Block, keep []int, stride, off int, idx []int32, va
 				return &RowError{Line: lineOf(b, r, 0), Column: t.spec.Columns[0],
 					Err: fmt.Errorf("level %q was not in the data the model was fitted on (known levels: %s)", x[r], levelList(t.levels))}
 			}
-			idx[i*stride+off] = int32(t.start + max(j-1, 0))
-			if j == 0 {
-				val[i*stride+off] = 0
-			} else {
-				val[i*stride+off] = 1
+			switch {
+			case t.spec.Shrink:
+				idx[i*stride+off], val[i*stride+off] = int32(t.start+j), 1
+			case j == 0:
+				idx[i*stride+off], val[i*stride+off] = int32(t.start), 0
+			default:
+				idx[i*stride+off], val[i*stride+off] = int32(t.start+j-1), 1
 			}
 		}
 	}
@@ -472,7 +545,7 @@ func (d *design) centre(colSum []float64) error {
 		}
 		cons := append([]float64(nil), t.cons...)
 		r := t.nCons
-		if !t.interaction {
+		if !t.uncentred {
 			cons = append(cons, colSum[t.start:t.start+t.width]...)
 			r++
 		}

@@ -9,32 +9,34 @@ package fit
 // the Bayesian posterior covariance of the coefficients (Wahba 1983;
 // Silverman 1985), scaled by Scale.
 type Document struct {
-	Format            string       `json:"format"`
-	Model             string       `json:"model"`
-	Family            Family       `json:"family"`
-	Link              Link         `json:"link"`
-	N                 int          `json:"n"`
-	Deviance          float64      `json:"deviance"`
-	NullDeviance      float64      `json:"null_deviance"`
-	DevianceExplained float64      `json:"deviance_explained"`
-	Scale             float64      `json:"scale"`
-	ScaleEstimated    bool         `json:"scale_estimated"`
-	EDFTotal          float64      `json:"edf_total"`
-	ResidualDF        float64      `json:"residual_df"`
-	LogLikelihood     float64      `json:"log_likelihood"`
-	AIC               float64      `json:"aic"`
-	Criterion         Criterion    `json:"criterion"`
+	Format            string    `json:"format"`
+	Model             string    `json:"model"`
+	Family            Family    `json:"family"`
+	Link              Link      `json:"link"`
+	N                 int       `json:"n"`
+	Deviance          float64   `json:"deviance"`
+	NullDeviance      float64   `json:"null_deviance"`
+	DevianceExplained float64   `json:"deviance_explained"`
+	Scale             float64   `json:"scale"`
+	ScaleEstimated    bool      `json:"scale_estimated"`
+	EDFTotal          float64   `json:"edf_total"`
+	ResidualDF        float64   `json:"residual_df"`
+	LogLikelihood     float64   `json:"log_likelihood"`
+	AIC               float64   `json:"aic"`
+	Criterion         Criterion `json:"criterion"`
 	// ResidualLag1 is the lag-one autocorrelation of the Pearson residuals
 	// in row order: near 0 for independent errors; well above 0 on
 	// time-ordered sensor rows means the bands are too narrow unless the
 	// model accounts for serial correlation.
 	ResidualLag1 float64 `json:"residual_lag1"`
-	Intercept         Estimate     `json:"intercept"`
-	Terms             []TermResult `json:"terms"`
-	Convergence       Convergence  `json:"convergence"`
-	Data              DataRecord   `json:"data"`
-	Warnings          []string     `json:"warnings,omitempty"`
-	Spec              *Spec        `json:"spec"`
+	// Serial describes the AR(1) error model, when the spec has one.
+	Serial      *SerialRecord `json:"serial,omitempty"`
+	Intercept   Estimate      `json:"intercept"`
+	Terms       []TermResult  `json:"terms"`
+	Convergence Convergence   `json:"convergence"`
+	Data        DataRecord    `json:"data"`
+	Warnings    []string      `json:"warnings,omitempty"`
+	Spec        *Spec         `json:"spec"`
 	// Coefficients are the fitted β: the intercept first, then each term's
 	// coefficients in order (see TermResult.Coefficients for the ranges).
 	// Linear terms are per unit of their column.
@@ -113,6 +115,17 @@ type TermResult struct {
 	// from the reference level on the link scale.
 	Reference string              `json:"reference,omitempty"`
 	Levels    map[string]Estimate `json:"levels,omitempty"`
+	// Shrunk marks a factor whose levels are shrunk towards zero by a ridge
+	// penalty (a random intercept per level): Levels then holds every level
+	// (no reference), Smoothing the penalty's strength λ and LevelVariance
+	// the variance of the level effects, φ/λ.
+	Shrunk        bool     `json:"shrunk,omitempty"`
+	LevelVariance *float64 `json:"level_variance,omitempty"`
+	// By and ByLevel are set on a curve that applies to the rows of one
+	// level of a factor (a spec curve with `by`, expanded to one term per
+	// level, named "column[factor=level]").
+	By      string `json:"by,omitempty"`
+	ByLevel string `json:"by_level,omitempty"`
 	// Range holds each column's [min, max] over the fitted rows.
 	Range [][2]float64 `json:"range,omitempty"`
 	// Coefficients locates the term's coefficients: [first, count].

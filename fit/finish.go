@@ -69,6 +69,10 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 			return nil, fmt.Errorf("no residual degrees of freedom (%d rows, %.1f effective degrees of freedom); use more rows or smaller sizes", res.n, edf)
 		}
 		scale = res.pearson / (n - edf)
+		if f.serialRec != nil {
+			// The whitened residuals estimate the errors' marginal variance.
+			scale = sol.rss / (n - edf)
+		}
 	}
 	// Posterior covariance H⁻¹φ in the internal parametrisation, then the
 	// linear map T to the reported one (linear terms per unit of their
@@ -116,6 +120,15 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	if !m.fam.FixedScale() {
 		k++
 	}
+	if f.serialRec != nil {
+		// Gaussian log-likelihood of the whitened rows at φ = D̃/n, plus the
+		// log-Jacobian of the whitening, −(n − stretches)/2 · log(1 − ρ²).
+		rho := f.serialRec.Rho
+		phi := sol.rss / n
+		res.logLik = -0.5*(n+n*math.Log(2*math.Pi*phi)) - 0.5*(n-float64(f.serialRec.Stretches))*math.Log(1-rho*rho)
+		k++ // ρ
+		doc.Serial = f.serialRec
+	}
 	if finite(res.logLik) {
 		doc.LogLikelihood = res.logLik
 		doc.AIC = -2*res.logLik + 2*k
@@ -139,7 +152,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
 	lambda := st.sel.lambdaAt(st.rho)
 	for ti, t := range d.terms {
-		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased, Interaction: t.interaction}
+		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased, Interaction: t.interaction, By: t.byColumn, ByLevel: t.byLevel}
 		for c := 0; c < t.q; c++ {
 			tr.EDF += edfCoef[t.cstart+c]
 		}
@@ -176,8 +189,20 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 				tr.Estimate, tr.SE = &e, &s
 			}
 		case Factor:
-			tr.Reference = t.levels[0]
 			tr.Levels = map[string]Estimate{}
+			if t.spec.Shrink {
+				// Every level has a coefficient; z is the identity.
+				tr.Shrunk = true
+				for c := 0; c < t.q; c++ {
+					tr.Levels[t.levels[c]] = Estimate{Estimate: beta[t.cstart+c], SE: se(t.cstart + c)}
+				}
+				// β ~ N(0, φ/λ): the variance of the level effects.
+				variance := scale / lambda[t.penStart]
+				tr.LevelVariance = &variance
+				tr.Smoothing = []float64{lambda[t.penStart]}
+				break
+			}
+			tr.Reference = t.levels[0]
 			for c, raw := range t.active {
 				tr.Levels[t.levels[raw+1]] = Estimate{Estimate: beta[t.cstart+c], SE: se(t.cstart + c)}
 			}
@@ -207,15 +232,19 @@ func transpose(a []float64, r, c int) []float64 {
 // record stores a penalised term's basis for prediction.
 func (t *termDesign) record() *BasisRecord {
 	rec := &BasisRecord{Width: t.width, Z: t.z}
-	add := func(c *basis.Curve) {
-		rec.Margins = append(rec.Margins, MarginRecord{Basis: t.spec.Basis, Knots: c.B.Knots, Lo: c.Lo, Hi: c.Hi, Periodic: c.Periodic})
+	add := func(c *basis.Curve, b Basis) {
+		rec.Margins = append(rec.Margins, MarginRecord{Basis: b, Knots: c.B.Knots, Lo: c.Lo, Hi: c.Hi, Periodic: c.Periodic})
 	}
 	if t.curve != nil {
-		add(t.curve)
+		add(t.curve, t.spec.Basis)
 	}
-	for _, mg := range t.margins {
+	for i, mg := range t.margins {
 		if mg != nil {
-			add(mg)
+			b := t.spec.Basis
+			if i < len(t.spec.Bases) {
+				b = t.spec.Bases[i]
+			}
+			add(mg, b)
 		}
 	}
 	return rec

@@ -94,6 +94,10 @@ type fitter struct {
 	// nullDev is the null deviance, from the first accumulation pass or,
 	// with an offset, from its own intercept-only fit.
 	nullDev float64
+	// serial is the AR(1) error model, if the spec asks for one, and
+	// serialRec what its fit found.
+	serial    *serialModel
+	serialRec *SerialRecord
 }
 
 func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
@@ -135,7 +139,11 @@ func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
 	if opt.Householder {
 		mode = householder
 	}
-	return &fitter{m: m, src: src, opt: opt, log: log, mode: mode}, nil
+	f := &fitter{m: m, src: src, opt: opt, log: log, mode: mode}
+	if s := spec.Serial; s != nil {
+		f.serial = &serialModel{order: s.Order, rho: s.Rho, estimate: s.Estimate, gap: s.Gap}
+	}
+	return f, nil
 }
 
 func cmpOr(v, d int) int {
@@ -190,6 +198,7 @@ func (f *fitter) run(ctx context.Context) (*Document, error) {
 	if err != nil {
 		return nil, fmt.Errorf("model %q: %w", name, err)
 	}
+	f.warn = append(f.warn, d.warnings...)
 	st, err := f.pirls(ctx, d, sum)
 	if err != nil {
 		return nil, fmt.Errorf("model %q: %w", name, err)
@@ -255,6 +264,26 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 		return nil, err
 	}
 	linear := m.fam.Name() == "gaussian" && m.link.Name() == "identity"
+	if f.serial != nil {
+		if !linear {
+			return nil, errors.New("serial (AR(1)) errors need the gaussian family with the identity link")
+		}
+		if m.spec.Weights != "" {
+			return nil, errors.New("serial (AR(1)) errors cannot be combined with prior weights")
+		}
+		rec, err := f.fitSerial(ctx, st, f.serial)
+		if err != nil {
+			return nil, err
+		}
+		f.serialRec = rec
+		st.beta, st.conv, st.iter, st.relChg = st.eval.sol.beta, true, 1, 0
+		phi := st.eval.sol.rss / float64(sum.rowsUsed)
+		if st.res, err = f.pass(ctx, st, st.beta, evaluateOnly, nil, phi); err != nil {
+			return nil, err
+		}
+		f.progress("final", st.res.n, st.res.dev)
+		return st, nil
+	}
 	// β₀: the null model, a safe point to halve steps back towards.
 	prevBeta := make([]float64, st.d.pc)
 	prevBeta[0] = m.link.Link(sum.yMean)

@@ -31,6 +31,8 @@ type Predictor struct {
 	terms []predTerm
 	need  Need
 	pc    int
+
+	byLevels map[string]map[string]bool
 }
 
 type predTerm struct {
@@ -95,6 +97,16 @@ func NewPredictor(doc *Document) (*Predictor, error) {
 			pt.z = tr.Basis.Z
 			for _, c := range tr.Columns {
 				addNeed(c, false)
+			}
+			if tr.By != "" {
+				addNeed(tr.By, true)
+				if p.byLevels == nil {
+					p.byLevels = map[string]map[string]bool{}
+				}
+				if p.byLevels[tr.By] == nil {
+					p.byLevels[tr.By] = map[string]bool{}
+				}
+				p.byLevels[tr.By][tr.ByLevel] = true
 			}
 		case Linear:
 			addNeed(tr.Columns[0], false)
@@ -184,6 +196,20 @@ func (p *Predictor) Predict(ctx context.Context, src Source, fn func(Prediction)
 					if !finite(x) {
 						ok = false
 						break
+					}
+					if by := pt.res.By; by != "" {
+						lv := b.Text[by][r]
+						if lv == "" {
+							ok = false
+							break
+						}
+						if !p.byLevels[by][lv] {
+							return &RowError{Line: lineOf(b, r, 0), Column: by,
+								Err: fmt.Errorf("level %q has no curve in model %q (its curves cover %d levels)", lv, p.doc.Model, len(p.byLevels[by]))}
+						}
+						if lv != pt.res.ByLevel {
+							continue
+						}
 					}
 					if x < pt.res.Range[0][0] || x > pt.res.Range[0][1] {
 						out.OutOfRange[r] = true

@@ -21,6 +21,9 @@ func FuzzParseSpec(f *testing.F) {
 	for _, tc := range specErrorCases {
 		f.Add([]byte(tc.in))
 	}
+	for _, in := range specFuzzSeeds {
+		f.Add([]byte(in))
+	}
 	f.Fuzz(func(t *testing.T, data []byte) {
 		s, err := ParseSpec(data)
 		if err != nil {
@@ -38,6 +41,20 @@ func FuzzParseSpec(f *testing.F) {
 			t.Fatalf("the spec changed when written out and read back:\nfirst  %+v\nsecond %+v", s, again)
 		}
 	})
+}
+
+// specFuzzSeeds are small accepted specs using the newer keys (by, shrink,
+// per-margin surface bases and periods, serial), so that mutations start
+// from inside each rule as well as from the goldens.
+var specFuzzSeeds = []string{
+	specHead + "terms:\n  - curve: x\n    by: site\n  - factor: site\n    shrink: true\n",
+	specHead + "terms: [{curve: x, by: g, smoothing: 1}, {curve: z, by: g}, {factor: g, shrink: false}]\n",
+	specHead + "terms:\n  - surface: [h, x]\n    basis: [cyclic, pspline]\n    period: [[0, 24], null]\n",
+	specHead + "terms:\n  - surface: [x, h]\n    basis: [cubic, cyclic]\n    knots: quantile\n    size: [3, 4]\n    period: [~, [0, 1]]\n",
+	specHead + "terms:\n  - surface: [h, d]\n    basis: cyclic\n    period: [[0, 24], [1, 366]]\n",
+	specHead + "terms: [{curve: t}]\nserial: {order: t}\n",
+	specHead + "terms: [{linear: x}]\nserial:\n  order: t\n  rho: -0.5\n  gap: 2\n",
+	specHead + "terms: [{linear: x}]\nserial: {order: t, rho: estimate, gap: 0.25}\n",
 }
 
 // checkSpecError checks what ParseSpec returns for a spec it rejects.
@@ -79,12 +96,26 @@ func checkSpec(t *testing.T, s *Spec) {
 	if s.Offset != "" {
 		roles[s.Offset] = true
 	}
+	curves := map[string]bool{}
 	for i, term := range s.Terms {
 		checkTerm(t, i, term)
-		for _, col := range term.Columns {
+		for _, col := range append(slices.Clone(term.Columns), term.By) {
 			if roles[col] {
 				t.Fatalf("terms[%d] uses the column %q of the response, weights or offset", i, col)
 			}
+		}
+		if term.Kind == Curve {
+			if curves[term.Columns[0]] {
+				t.Fatalf("terms[%d]: a second curve of %q", i, term.Columns[0])
+			}
+			curves[term.Columns[0]] = true
+		}
+	}
+	if sr := s.Serial; sr != nil {
+		okRho := sr.Estimate && sr.Rho == 0 || !sr.Estimate && sr.Rho > -1 && sr.Rho < 1
+		if sr.Order == "" || roles[sr.Order] || !okRho || !(sr.Gap >= 0) || math.IsInf(sr.Gap, 0) ||
+			s.Family != Gaussian || s.Link != Identity {
+			t.Fatalf("serial %+v with family %s, link %s", *sr, s.Family, s.Link)
 		}
 	}
 	numeric, text := s.Columns()
@@ -138,6 +169,12 @@ func checkTerm(t *testing.T, i int, term TermSpec) {
 			t.Fatalf("terms[%d]: smoothing %v", i, term.Smoothing)
 		}
 	}
+	if term.Kind != Curve && term.By != "" || term.Kind != Factor && term.Shrink {
+		t.Fatalf("terms[%d]: %s with by or shrink: %+v", i, term.Kind, term)
+	}
+	if term.Kind != Surface && (term.Bases != nil || term.Periods != nil) {
+		t.Fatalf("terms[%d]: %s with per-margin options: %+v", i, term.Kind, term)
+	}
 	switch term.Kind {
 	case Linear, Factor:
 		if term.Basis != "" || term.Size != nil || term.Knots != "" || term.Period != nil || term.Smoothing != nil {
@@ -151,20 +188,43 @@ func checkTerm(t *testing.T, i int, term TermSpec) {
 		okPeriod := (term.Basis == Cyclic) == (term.Period != nil) &&
 			(term.Period == nil || len(term.Period) == 2 && term.Period[0] < term.Period[1])
 		if !okBasis || !okKnots || term.Basis == PSpline && term.Knots != EvenKnots ||
-			!okSize || !okPeriod || len(term.Smoothing) > 1 {
+			!okSize || !okPeriod || len(term.Smoothing) > 1 || term.By == term.Columns[0] {
 			t.Fatalf("terms[%d]: bad curve %+v", i, term)
 		}
 	case Surface:
-		okBasis := term.Basis == Cubic || term.Basis == PSpline
-		okKnots := term.Knots == EvenKnots || term.Knots == QuantileKnots && term.Basis == Cubic
-		okSize := len(term.Size) == 2 && term.Size[0]*term.Size[1] <= MaxBasisSize &&
-			min(term.Size[0], term.Size[1]) >= term.Basis.MinSize()
-		if !okBasis || !okKnots || !okSize || term.Period != nil ||
-			term.Smoothing != nil && len(term.Smoothing) != 2 {
-			t.Fatalf("terms[%d]: bad surface %+v", i, term)
-		}
+		checkSurface(t, i, term)
 	default:
 		t.Fatalf("terms[%d]: kind %q", i, term.Kind)
+	}
+}
+
+// checkSurface checks one accepted surface.
+func checkSurface(t *testing.T, i int, term TermSpec) {
+	t.Helper()
+	if len(term.Bases) != 2 || len(term.Size) != 2 || term.Period != nil ||
+		term.Smoothing != nil && len(term.Smoothing) != 2 {
+		t.Fatalf("terms[%d]: bad surface %+v", i, term)
+	}
+	common := Basis("")
+	if term.Bases[0] == term.Bases[1] {
+		common = term.Bases[0]
+	}
+	cyclic := slices.Contains(term.Bases, Cyclic)
+	okBasis := term.Basis == common
+	okKnots := term.Knots == EvenKnots || term.Knots == QuantileKnots && !slices.Contains(term.Bases, PSpline)
+	okSize := term.Size[0]*term.Size[1] <= MaxBasisSize
+	okPeriods := cyclic == (term.Periods != nil) && (term.Periods == nil || len(term.Periods) == 2)
+	for j, b := range term.Bases {
+		okBasis = okBasis && (b == Cubic || b == PSpline || b == Cyclic)
+		okSize = okSize && term.Size[j] >= b.MinSize()
+		if okPeriods && cyclic {
+			pj := term.Periods[j]
+			okPeriods = (b == Cyclic) == (pj != nil) &&
+				(pj == nil || len(pj) == 2 && pj[0] < pj[1] && !math.IsInf(pj[0], 0) && !math.IsInf(pj[1], 0))
+		}
+	}
+	if !okBasis || !okKnots || !okSize || !okPeriods {
+		t.Fatalf("terms[%d]: bad surface %+v", i, term)
 	}
 }
 
@@ -187,6 +247,16 @@ func writeSpec(t *testing.T, s *Spec) []byte {
 	if s.Watch != nil {
 		m["watch"] = s.Watch
 	}
+	if sr := s.Serial; sr != nil {
+		serial := map[string]any{"order": sr.Order, "rho": sr.Rho}
+		if sr.Estimate {
+			serial["rho"] = "estimate"
+		}
+		if sr.Gap > 0 {
+			serial["gap"] = sr.Gap
+		}
+		m["serial"] = serial
+	}
 	terms := make([]map[string]any, len(s.Terms))
 	for i, term := range s.Terms {
 		tm := map[string]any{}
@@ -194,21 +264,42 @@ func writeSpec(t *testing.T, s *Spec) []byte {
 		case Surface:
 			tm["surface"] = term.Columns
 			tm["size"] = term.Size
+			tm["knots"] = string(term.Knots)
+			// One name when the margins agree, else a list: both forms.
+			tm["basis"] = []string{string(term.Bases[0]), string(term.Bases[1])}
+			if term.Basis != "" {
+				tm["basis"] = string(term.Basis)
+			}
+			if term.Periods != nil {
+				period := make([]any, 2)
+				for j, pj := range term.Periods {
+					if pj != nil {
+						period[j] = pj
+					}
+				}
+				tm["period"] = period
+			}
 		default:
 			tm[string(term.Kind)] = term.Columns[0]
 			if term.Kind == Curve && term.Knots != AllKnots {
 				tm["size"] = term.Size[0]
 			}
-		}
-		if term.Basis != "" {
-			tm["basis"] = string(term.Basis)
-			tm["knots"] = string(term.Knots)
+			if term.Basis != "" {
+				tm["basis"] = string(term.Basis)
+				tm["knots"] = string(term.Knots)
+			}
 		}
 		if term.Period != nil {
 			tm["period"] = term.Period
 		}
 		if term.Smoothing != nil {
 			tm["smoothing"] = term.Smoothing
+		}
+		if term.By != "" {
+			tm["by"] = term.By
+		}
+		if term.Shrink {
+			tm["shrink"] = true
 		}
 		terms[i] = tm
 	}

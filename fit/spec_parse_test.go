@@ -114,8 +114,9 @@ var specErrorCases = []struct {
 	{"term not mapping", specHead + "terms:\n  - water_temp\n", 4, "terms[0]", []string{"a term must be a mapping", `"water_temp"`}},
 	{"term no kind", specHead + "terms:\n  - basis: cubic\n", 4, "terms[0]", []string{"none of curve, linear, factor or surface"}},
 	{"term two kinds", specHead + "terms:\n  - curve: x\n    linear: x\n", 5, "terms[0]", []string{"both curve and linear", "split"}},
-	{"term unknown key", specHead + "terms:\n  - curve: x\n    smooth: 3\n", 5, "terms[0]", []string{`unknown key "smooth" (known keys for a curve: basis, size, knots, period, smoothing)`}},
-	{"term unknown key surface", specHead + "terms:\n  - surface: [a, b]\n    by: site\n", 5, "terms[0]", []string{`unknown key "by" (known keys for a surface: basis, size, knots, smoothing)`}},
+	{"term unknown key", specHead + "terms:\n  - curve: x\n    smooth: 3\n", 5, "terms[0]", []string{`unknown key "smooth" (known keys for a curve: basis, size, knots, period, smoothing, by)`}},
+	{"term unknown key surface", specHead + "terms:\n  - surface: [a, b]\n    colour: red\n", 5, "terms[0]", []string{`unknown key "colour" (known keys for a surface: basis, size, knots, period, smoothing)`}},
+	{"term unknown key factor", specHead + "terms:\n  - factor: site\n    shrunk: true\n", 5, "terms[0]", []string{`unknown key "shrunk", did you mean "shrink"? (known keys for a factor: shrink)`}},
 	{"term unknown key linear", specHead + "terms:\n  - linear: x\n    scale: 2\n", 5, "terms[0]", []string{`unknown key "scale"`, "no other keys"}},
 	{"term duplicate key", specHead + "terms:\n  - curve: x\n    size: 5\n    size: 6\n", 6, "terms[0]", []string{`key "size" appears twice (first on line 5)`}},
 	{"column null", specHead + "terms:\n  - linear:\n", 4, "terms[0]", []string{"linear has no value"}},
@@ -152,10 +153,10 @@ var specErrorCases = []struct {
 	{"surface scalar", specHead + "terms:\n  - surface: a\n", 4, "terms[0]", []string{"surface must be a list of two columns", `"a"`}},
 	{"surface one", specHead + "terms:\n  - surface: [a]\n", 4, "terms[0]", []string{"surface has 1 columns", "exactly two"}},
 	{"surface same column", specHead + "terms:\n  - surface: [a, a]\n", 4, "terms[0]", []string{"surface [a, a] names one column twice"}},
-	{"surface cyclic", specHead + "terms:\n  - surface: [a, b]\n    basis: cyclic\n", 5, "terms[0]", []string{"basis cyclic does not suit a surface"}},
+	{"surface cyclic without period", specHead + "terms:\n  - surface: [a, b]\n    basis: cyclic\n", 5, "terms[0]", []string{"a surface with a cyclic margin needs period", "period: [[0, 24], [0, 24]]"}},
 	{"surface knots all", specHead + "terms:\n  - surface: [a, b]\n    knots: all\n", 5, "terms[0]", []string{"knots all is for curves only"}},
 	{"surface pspline quantile", specHead + "terms:\n  - surface: [a, b]\n    knots: quantile\n", 5, "terms[0]", []string{"knots quantile does not suit a pspline surface"}},
-	{"surface period", specHead + "terms:\n  - surface: [a, b]\n    period: [0, 1]\n", 5, "terms[0]", []string{"period applies only to cyclic curves", "surface"}},
+	{"surface period", specHead + "terms:\n  - surface: [a, b]\n    period: [0, 1]\n", 5, "terms[0]", []string{"period applies only to cyclic margins", "neither margin of this surface", "basis: [cyclic, pspline]"}},
 	{"surface size small", specHead + "terms:\n  - surface: [a, b]\n    basis: cubic\n    size: [3, 2]\n", 6, "terms[0]", []string{"size[1] 2 is too small for a cubic surface margin: use at least 3"}},
 	{"surface size small pspline", specHead + "terms:\n  - surface: [a, b]\n    size: 3\n", 5, "terms[0]", []string{"size 3 is too small for a pspline surface margin: use at least 4"}},
 	{"surface size three", specHead + "terms:\n  - surface: [a, b]\n    size: [4, 4, 4]\n", 5, "terms[0]", []string{"size must be a whole number or a list of two", "not a list"}},
@@ -170,6 +171,63 @@ var specErrorCases = []struct {
 	{"linear and curve", specHead + "terms:\n  - linear: x\n  - surface: [x, z]\n  - curve: x\n", 6, "terms[2]", []string{`column "x" is in terms[0] (linear) and in this curve`, "pick one"}},
 	{"curve and factor", specHead + "terms:\n  - curve: x\n  - factor: x\n", 5, "terms[1]", []string{`column "x" is in terms[0] (curve) and in this factor`, "categories"}},
 	{"factor and surface", specHead + "terms:\n  - factor: x\n  - surface: [z, x]\n", 5, "terms[1]", []string{`column "x" is in terms[0] (factor) and in this surface`}},
+
+	{"curve by null", specHead + "terms:\n  - curve: x\n    by:\n", 5, "terms[0]", []string{"by has no value", "factor column"}},
+	{"curve by list", specHead + "terms:\n  - curve: x\n    by: [site, depth]\n", 5, "terms[0]", []string{"by must be a factor column", "not a list"}},
+	{"curve by own column", specHead + "terms:\n  - curve: x\n    size: 5\n    by: x\n", 6, "terms[0]", []string{`by "x" is the curve's own column`, "by: site"}},
+	{"curve by response", specHead + "terms:\n  - curve: x\n    by: y\n", 5, "terms[0]", []string{`by "y" is the response column`, "use a factor column for by"}},
+	{"curve by weights", specHead + "weights: w\nterms:\n  - curve: x\n    by: w\n", 6, "terms[0]", []string{`by "w" is the weights column`}},
+	{"curve by offset", specHead + "offset: o\nterms:\n  - curve: x\n    by: o\n", 6, "terms[0]", []string{`by "o" is the offset column`}},
+	{"curve by a curve column", specHead + "terms:\n  - curve: z\n  - curve: x\n    by: z\n", 6, "terms[1]", []string{`by column "z" is in terms[0] (curve)`, "read as categories"}},
+	{"linear on a by column", specHead + "terms:\n  - curve: x\n    by: site\n  - linear: site\n", 6, "terms[1]", []string{`column "site" is the by column of terms[0] and in this linear`}},
+	{"surface on a by column", specHead + "terms:\n  - curve: x\n    by: site\n  - surface: [z, site]\n", 6, "terms[1]", []string{`column "site" is the by column of terms[0] and in this surface`}},
+	{"curve plain and by", specHead + "terms:\n  - curve: x\n  - curve: x\n    by: site\n", 5, "terms[1]", []string{`terms[0] is already a curve of "x"`, "plain or with by"}},
+	{"linear by", specHead + "terms:\n  - linear: x\n    by: site\n", 5, "terms[0]", []string{"by applies only to curves, not to a linear term", "curve: x with by"}},
+	{"factor by", specHead + "terms:\n  - factor: site\n    by: zone\n", 5, "terms[0]", []string{"by applies only to curves, not to a factor term"}},
+	{"surface by", specHead + "terms:\n  - surface: [a, b]\n    by: site\n", 5, "terms[0]", []string{"by applies only to curves, not to a surface"}},
+	{"factor shrink text", specHead + "terms:\n  - factor: site\n    shrink: yes\n", 5, "terms[0]", []string{"shrink must be true or false", `the text "yes"`}},
+	{"factor shrink null", specHead + "terms:\n  - factor: site\n    shrink:\n", 5, "terms[0]", []string{"shrink has no value: give true or false"}},
+	{"curve shrink", specHead + "terms:\n  - curve: x\n    shrink: true\n", 5, "terms[0]", []string{"shrink applies only to factor terms", "curve"}},
+	{"linear shrink", specHead + "terms:\n  - linear: x\n    shrink: true\n", 5, "terms[0]", []string{"shrink applies only to factor terms", "factor: x"}},
+	{"surface shrink", specHead + "terms:\n  - surface: [a, b]\n    shrink: true\n", 5, "terms[0]", []string{"shrink applies only to factor terms", "surface"}},
+	{"factor size with shrink", specHead + "terms:\n  - factor: site\n    shrink: true\n    size: 4\n", 6, "terms[0]", []string{"size applies only to curves and surfaces"}},
+
+	{"surface bases three", specHead + "terms:\n  - surface: [a, b]\n    basis: [cubic, cubic, cubic]\n", 5, "terms[0]", []string{"basis must be one name for both margins or a list of two", "not a list"}},
+	{"surface bases mapping", specHead + "terms:\n  - surface: [a, b]\n    basis: {a: cubic}\n", 5, "terms[0]", []string{"basis must be one name for both margins or a list of two", "not a mapping"}},
+	{"surface bases unknown", specHead + "terms:\n  - surface: [a, b]\n    basis: [cubic, thin_plate]\n", 5, "terms[0]", []string{`basis[1] "thin_plate" is not one of cubic, pspline, cyclic`}},
+	{"surface bases null entry", specHead + "terms:\n  - surface: [a, b]\n    basis: [cubic, null]\n", 5, "terms[0]", []string{"basis[1] has no value: use one of cubic, pspline, cyclic"}},
+	{"surface cyclic margin without period", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n", 5, "terms[0]", []string{"a surface with a cyclic margin needs period", "e.g. period: [[0, 24], null]"}},
+	{"surface period one margin form", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n    period: [0, 24]\n", 6, "terms[0]", []string{"period [0, 24] is the period of one margin", "e.g. [[0, 24], null]"}},
+	{"surface period three", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n    period: [[0, 24], null, null]\n", 6, "terms[0]", []string{"period on a surface must be a list of two entries", "not a list"}},
+	{"surface period scalar", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n    period: 24\n", 6, "terms[0]", []string{"period on a surface must be a list of two entries", "not 24"}},
+	{"surface period on non-cyclic margin", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n    period: [[0, 24], [0, 10]]\n", 6, "terms[0]", []string{"period[1] is given but margin 1 (flow) is pspline, not cyclic", "write null"}},
+	{"surface period missing for cyclic margin", specHead + "terms:\n  - surface: [flow, hour]\n    basis: [pspline, cyclic]\n    period: [null, null]\n", 6, "terms[0]", []string{"period[1] is empty but margin 1 (hour) is cyclic", "[0, 24]"}},
+	{"surface period decreasing", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, cubic]\n    period: [[24, 0], ~]\n", 6, "terms[0]", []string{"period[0] [24, 0] must increase"}},
+	{"surface period text", specHead + "terms:\n  - surface: [hour, day]\n    basis: cyclic\n    period: [[0, 24], [1, end]]\n", 6, "terms[0]", []string{"period[1][1] must be a number", `"end"`}},
+	{"surface period entry scalar", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, cubic]\n    period: [24, null]\n", 6, "terms[0]", []string{"period[0] must be two numbers [start, end]", "not 24"}},
+	{"surface cyclic margin small", specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, cubic]\n    period: [[0, 24], null]\n    size: [3, 3]\n", 7, "terms[0]", []string{"size[0] 3 is too small for a cyclic surface margin: use at least 4"}},
+	{"surface one size mixed", specHead + "terms:\n  - surface: [a, b]\n    basis: [cubic, pspline]\n    size: 3\n", 6, "terms[0]", []string{"size 3 is too small for a pspline surface margin: use at least 4"}},
+	{"surface mixed quantile", specHead + "terms:\n  - surface: [a, b]\n    basis: [cubic, pspline]\n    knots: quantile\n", 6, "terms[0]", []string{"knots quantile does not suit the pspline margin of this surface", "knots applies to both margins"}},
+
+	{"serial null", specHead + "terms: [{linear: x}]\nserial:\n", 4, "", []string{"serial has no value", "order"}},
+	{"serial list", specHead + "terms: [{linear: x}]\nserial: [t]\n", 4, "", []string{"serial must be a mapping of keys (order, rho, gap)", "not a list"}},
+	{"serial unknown key", specHead + "terms: [{linear: x}]\nserial:\n  order: t\n  lag: 1\n", 6, "serial", []string{`unknown key "lag" (known keys: order, rho, gap)`}},
+	{"serial missing order", specHead + "terms: [{linear: x}]\nserial: {rho: 0.5}\n", 4, "serial", []string{`missing key "order"`, "order: hours_since_start"}},
+	{"serial order list", specHead + "terms: [{linear: x}]\nserial: {order: [t]}\n", 4, "serial", []string{"order must be the numeric column giving time", "not a list"}},
+	{"serial rho one", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: 1}\n", 4, "serial", []string{"rho 1 must be strictly between -1 and 1", "estimate"}},
+	{"serial rho minus one", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: -1.0}\n", 4, "serial", []string{"rho -1.0 must be strictly between -1 and 1"}},
+	{"serial rho word", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: estimated}\n", 4, "serial", []string{`rho "estimated" is neither a number nor the word estimate`}},
+	{"serial rho null", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: }\n", 4, "serial", []string{"rho has no value", "estimate"}},
+	{"serial rho bool", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: true}\n", 4, "serial", []string{"rho must be a number strictly between -1 and 1", "or the word estimate", "not true"}},
+	{"serial rho nan", specHead + "terms: [{linear: x}]\nserial: {order: t, rho: .nan}\n", 4, "serial", []string{"rho must be a finite number"}},
+	{"serial gap zero", specHead + "terms: [{linear: x}]\nserial: {order: t, gap: 0}\n", 4, "serial", []string{"gap 0 must be above 0", "remove gap"}},
+	{"serial gap text", specHead + "terms: [{linear: x}]\nserial: {order: t, gap: 1h}\n", 4, "serial", []string{"gap must be a number", `"1h"`}},
+	{"serial poisson", specHead + "family: poisson\nterms: [{linear: x}]\nserial: {order: t}\n", 5, "", []string{"serial (AR(1) errors) needs family gaussian with link identity, not family poisson with link log"}},
+	{"serial gaussian log", specHead + "link: log\nterms: [{linear: x}]\nserial: {order: t}\n", 5, "", []string{"needs family gaussian with link identity", "link log"}},
+	{"serial order response", specHead + "terms: [{linear: x}]\nserial:\n  order: y\n", 5, "serial", []string{`order "y" is the response column`}},
+	{"serial order weights", specHead + "weights: w\nterms: [{linear: x}]\nserial:\n  order: w\n", 6, "serial", []string{`order "w" is the weights column`}},
+	{"serial order factor", specHead + "terms: [{factor: t}]\nserial:\n  order: t\n", 5, "serial", []string{`order "t" is the column of the factor in terms[0]`, "numeric"}},
+	{"serial order by", specHead + "terms: [{curve: x, by: t}]\nserial:\n  rho: 0.3\n  order: t\n", 6, "serial", []string{`order "t" is the by column of terms[0]`}},
 
 	{"watch list", specHead + "terms: [{linear: x}]\nwatch: [a]\n", 4, "", []string{"watch must be a mapping", "not a list"}},
 	{"watch null", specHead + "terms: [{linear: x}]\nwatch:\n", 4, "", []string{"watch must be a mapping", "an empty value"}},
@@ -303,8 +361,8 @@ func TestParseSpecDefaults(t *testing.T) {
 		name: "gamma surface",
 		in:   specHead + "family: gamma\nlink: inverse\nterms:\n  - surface: [a, b]\n    smoothing: 3\n  - surface: [c, d]\n    basis: cubic\n    size: 4\n    smoothing: [1, 2.5]\n",
 		want: Spec{Name: "m", Response: "y", Family: Gamma, Link: Inverse, Selection: REML, Terms: []TermSpec{
-			{Kind: Surface, Columns: []string{"a", "b"}, Basis: PSpline, Size: []int{5, 5}, Knots: EvenKnots, Smoothing: []float64{3, 3}},
-			{Kind: Surface, Columns: []string{"c", "d"}, Basis: Cubic, Size: []int{4, 4}, Knots: QuantileKnots, Smoothing: []float64{1, 2.5}},
+			{Kind: Surface, Columns: []string{"a", "b"}, Basis: PSpline, Bases: []Basis{PSpline, PSpline}, Size: []int{5, 5}, Knots: EvenKnots, Smoothing: []float64{3, 3}},
+			{Kind: Surface, Columns: []string{"c", "d"}, Basis: Cubic, Bases: []Basis{Cubic, Cubic}, Size: []int{4, 4}, Knots: QuantileKnots, Smoothing: []float64{1, 2.5}},
 		}},
 	}, {
 		name: "numbers as written",
@@ -319,6 +377,47 @@ func TestParseSpecDefaults(t *testing.T) {
 			{Kind: Curve, Columns: []string{"a"}, Basis: Cubic, Size: []int{7}, Knots: QuantileKnots},
 			{Kind: Curve, Columns: []string{"b"}, Basis: Cubic, Size: []int{7}, Knots: QuantileKnots},
 		}, Watch: map[string]any{"against": "previous", "practical_shift": 1.0, "level": 0.95, "deviance_increase": 0.2, "confirm_runs": 3}},
+	}, {
+		name: "by and shrink",
+		in:   specHead + "terms:\n  - curve: x\n    by: site\n    smoothing: 2\n  - curve: z\n    by: site\n  - factor: site\n    shrink: true\n  - factor: zone\n    shrink: false\n",
+		want: Spec{Name: "m", Response: "y", Family: Gaussian, Link: Identity, Selection: REML, Terms: []TermSpec{
+			{Kind: Curve, Columns: []string{"x"}, Basis: Cubic, Size: []int{10}, Knots: QuantileKnots, Smoothing: []float64{2}, By: "site"},
+			{Kind: Curve, Columns: []string{"z"}, Basis: Cubic, Size: []int{10}, Knots: QuantileKnots, By: "site"},
+			{Kind: Factor, Columns: []string{"site"}, Shrink: true},
+			{Kind: Factor, Columns: []string{"zone"}},
+		}},
+	}, {
+		name: "surface margins",
+		in: specHead + "terms:\n  - surface: [hour, flow]\n    basis: [cyclic, pspline]\n    period: [[0, 24], null]\n" +
+			"  - surface: [hour, day]\n    basis: cyclic\n    knots: quantile\n    size: [6, 4]\n    period:\n      - [0, 24]\n      - [1, 366]\n" +
+			"  - surface: [a, b]\n    basis: [cubic, cubic]\n  - surface: [c, hour]\n    basis: [cubic, cyclic]\n    period: [~, [0, 24]]\n",
+		want: Spec{Name: "m", Response: "y", Family: Gaussian, Link: Identity, Selection: REML, Terms: []TermSpec{
+			{Kind: Surface, Columns: []string{"hour", "flow"}, Size: []int{5, 5}, Knots: EvenKnots,
+				Bases: []Basis{Cyclic, PSpline}, Periods: [][]float64{{0, 24}, nil}},
+			{Kind: Surface, Columns: []string{"hour", "day"}, Basis: Cyclic, Size: []int{6, 4}, Knots: QuantileKnots,
+				Bases: []Basis{Cyclic, Cyclic}, Periods: [][]float64{{0, 24}, {1, 366}}},
+			{Kind: Surface, Columns: []string{"a", "b"}, Basis: Cubic, Size: []int{5, 5}, Knots: QuantileKnots, Bases: []Basis{Cubic, Cubic}},
+			{Kind: Surface, Columns: []string{"c", "hour"}, Size: []int{5, 5}, Knots: EvenKnots,
+				Bases: []Basis{Cubic, Cyclic}, Periods: [][]float64{nil, {0, 24}}},
+		}},
+	}, {
+		name: "serial estimated by default",
+		in:   specHead + "terms: [{curve: t}]\nserial: {order: t}\n",
+		want: Spec{Name: "m", Response: "y", Family: Gaussian, Link: Identity, Selection: REML, Terms: []TermSpec{
+			{Kind: Curve, Columns: []string{"t"}, Basis: Cubic, Size: []int{10}, Knots: QuantileKnots},
+		}, Serial: &SerialSpec{Order: "t", Estimate: true}},
+	}, {
+		name: "serial fixed with gap",
+		in:   specHead + "terms: [{linear: x}]\nserial:\n  order: hours_since_start\n  rho: -0.25\n  gap: 1.5\n",
+		want: Spec{Name: "m", Response: "y", Family: Gaussian, Link: Identity, Selection: REML, Terms: []TermSpec{
+			{Kind: Linear, Columns: []string{"x"}},
+		}, Serial: &SerialSpec{Order: "hours_since_start", Rho: -0.25, Gap: 1.5}},
+	}, {
+		name: "serial rho estimate",
+		in:   specHead + "terms: [{linear: x}]\nserial: {order: t, rho: estimate, gap: 2}\n",
+		want: Spec{Name: "m", Response: "y", Family: Gaussian, Link: Identity, Selection: REML, Terms: []TermSpec{
+			{Kind: Linear, Columns: []string{"x"}},
+		}, Serial: &SerialSpec{Order: "t", Estimate: true, Gap: 2}},
 	}, {
 		name: "trailing empty document",
 		in:   specHead + "terms: [{linear: x}]\n---\n",
@@ -349,12 +448,12 @@ func forgetLines(s *Spec) {
 }
 
 func TestParseSpecLines(t *testing.T) {
-	s, err := ParseSpec([]byte("name: m\n\nresponse: y\nterms:\n  - linear: x\n\n  - curve: z\n"))
+	s, err := ParseSpec([]byte("name: m\n\nresponse: y\nterms:\n  - linear: x\n\n  - curve: z\nserial:\n  rho: 0.5\n  order: t\n"))
 	if err != nil {
 		t.Fatal(err)
 	}
-	if s.Lines["response"] != 3 || s.Terms[0].Line != 5 || s.Terms[1].Line != 7 {
-		t.Errorf("lines %v, terms on %d and %d; want response 3, terms 5 and 7", s.Lines, s.Terms[0].Line, s.Terms[1].Line)
+	if s.Lines["response"] != 3 || s.Terms[0].Line != 5 || s.Terms[1].Line != 7 || s.Lines["serial.order"] != 10 {
+		t.Errorf("lines %v, terms on %d and %d; want response 3, terms 5 and 7, serial.order 10", s.Lines, s.Terms[0].Line, s.Terms[1].Line)
 	}
 }
 
@@ -397,6 +496,21 @@ func TestCheckColumnsManyAndNone(t *testing.T) {
 	}
 }
 
+// TestCheckColumnsByAndOrder checks that a curve's by column and the serial
+// order column are looked for too.
+func TestCheckColumnsByAndOrder(t *testing.T) {
+	s, err := ParseSpec([]byte(specHead + "terms:\n  - curve: x\n    by: Site\nserial:\n  rho: 0.5\n  order: hours\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = s.CheckColumns([]string{"y", "x", "site", "hour"})
+	want := `line 4: terms[0]: by column "Site" is not in the data: did you mean "site"?` + "\n" +
+		`line 8: serial: serial order column "hours" is not in the data: did you mean "hour"?`
+	if err == nil || err.Error() != want {
+		t.Errorf("CheckColumns:\n%v\nwant:\n%s", err, want)
+	}
+}
+
 func TestSpecColumns(t *testing.T) {
 	s, err := ParseSpec([]byte(specHead + "weights: w\noffset: o\nterms:\n  - curve: a\n  - factor: site\n  - surface: [b, a]\n  - linear: c\n  - factor: season\n"))
 	if err != nil {
@@ -408,6 +522,24 @@ func TestSpecColumns(t *testing.T) {
 	}
 	if want := []string{"site", "season"}; !reflect.DeepEqual(text, want) {
 		t.Errorf("text %v, want %v", text, want)
+	}
+
+	// A by column is text, also when a factor uses it; the serial order is a
+	// number, also when a curve uses it.
+	s, err = ParseSpec([]byte(specHead + "terms:\n  - curve: a\n    by: site\n  - curve: t\n    by: depth_band\n  - factor: site\n    shrink: true\nserial: {order: t}\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	numeric, text = s.Columns()
+	if want := []string{"y", "a", "t"}; !reflect.DeepEqual(numeric, want) {
+		t.Errorf("numeric %v, want %v", numeric, want)
+	}
+	if want := []string{"site", "depth_band"}; !reflect.DeepEqual(text, want) {
+		t.Errorf("text %v, want %v", text, want)
+	}
+	s.Serial.Order = "hours_since_start"
+	if numeric, _ = s.Columns(); numeric[len(numeric)-1] != "hours_since_start" {
+		t.Errorf("numeric %v does not end with the serial order", numeric)
 	}
 }
 

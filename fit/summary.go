@@ -34,7 +34,17 @@ type columnStats struct {
 	distinct   map[float64]struct{}
 	tooMany    bool // more than maxDistinct distinct values
 	wantUnique bool
-	wantSample bool // keep a reservoir sample for quantile knots
+	wantSample bool      // keep a reservoir sample for quantile knots
+	sorted     []float64 // the sample, sorted (filled on first use)
+}
+
+// sortedSample returns the reservoir sample in increasing order.
+func (c *columnStats) sortedSample() []float64 {
+	if c.sorted == nil {
+		c.sorted = slices.Clone(c.sample)
+		slices.Sort(c.sorted)
+	}
+	return c.sorted
 }
 
 func (c *columnStats) add(x float64, rng *rand.Rand) {
