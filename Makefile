@@ -29,6 +29,7 @@ references: ## regenerate the outside reference values (needs python3-scipy, pyt
 	/usr/bin/python3 testdata/reference/glm/glm.py
 	/usr/bin/python3 testdata/reference/dobson/dobson.py
 	/usr/bin/python3 testdata/reference/longley/longley.py
+	/usr/bin/python3 testdata/reference/nested/nested.py
 
 ci: ## what CI runs
 	.ci/run

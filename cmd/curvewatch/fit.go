@@ -7,6 +7,7 @@ import (
 	"log/slog"
 	"math"
 	"os"
+	"strings"
 
 	"github.com/curvewatch/curvewatch/fit"
 	"github.com/curvewatch/curvewatch/fit/csvsource"
@@ -20,17 +21,27 @@ terms: curves, surfaces, linear and factor terms), then fits it to every row
 of the CSV file, choosing how smooth each curve is unless the spec fixes it.
 Rows with a missing value in a column the model uses are left out and
 counted. The fit document records the fit and everything 'curvewatch
-predict' and 'curvewatch compare' need later.`,
+predict' and 'curvewatch compare' need later.
+
+With --without TERM the model is fitted a second time without that term (or
+without several, with the flag repeated), on exactly the rows the full fit
+used, and the two fits are compared: how much deviance the term explains,
+how many degrees of freedom it uses, a test of whether the difference is
+more than chance (an F test when the family's scale is estimated, gaussian
+and gamma; a likelihood-ratio chi-square test for poisson and binomial), and
+both AICs. With curves or surfaces in the model the degrees of freedom are
+effective ones and the test is approximate.`,
 	example: "curvewatch fit --data sonde07.csv --model sonde07.yaml --out sonde07-fit.json",
 	writes: []item{
 		{"--out", "the fit document, as indented JSON. It is written to a temporary file beside it and then renamed, so the file is never left half written."},
-		{"stdout", "a summary: the rows used, how much deviance the model explains, and each term, with a small drawing of every curve's shape."},
+		{"stdout", "a summary: the rows used, how much deviance the model explains, and each term, with a small drawing of every curve's shape. With --without, then the comparison with the model without those terms and a reading in plain words (keep the terms when p < 0.05)."},
+		{"--without-out", "the comparison as JSON, written the same safe way (only with --without)."},
 		{"stderr", "progress while a long fit runs, a note naming the file written, and errors."},
 	},
 	exits: []item{
 		{"0", "the fit converged and the document was written"},
 		{"1", "an error: the spec or the data could not be read or do not match, or the fit failed. A fit that did not converge still writes its document, marked \"converged\": false, and exits 1."},
-		{"2", "the command line was wrong (a missing or unknown flag)"},
+		{"2", "the command line was wrong (a missing or unknown flag, or a --without term the model does not have: the message lists its terms)"},
 	},
 }
 
@@ -39,6 +50,10 @@ type fitArgs struct {
 	data, model, out string
 	maxIterations    int
 	quiet            bool
+	// without names terms to drop for a comparison; withoutOut is where
+	// to write it (optional).
+	without    []string
+	withoutOut string
 }
 
 func runFit(ctx context.Context, e *env, args []string) error {
@@ -51,6 +66,8 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	fl.Required(&a.out, "out", "FILE", "where to write the fit document (JSON); an existing file is replaced",
 		"the file to write the fit document (JSON) to")
 	fl.Int(&a.maxIterations, "max-iterations", "N", 100, "stop after this many fitting iterations and mark the document unconverged (only gaussian models with identity link are fitted in one step; the others iterate)")
+	fl.Repeated(&a.without, "without", "TERM", "also fit the model without this term, on the same rows, and test whether the data need it; name the term as the summary does (its column, or a,b for a surface); repeat the flag to drop several terms together")
+	fl.OptionalFile(&a.withoutOut, "without-out", "FILE", "with --without: also write the comparison (JSON) to this file")
 	fl.Bool(&a.quiet, "quiet", "write no progress or notices to stderr (the summary still goes to stdout; errors are still reported)")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
@@ -59,6 +76,9 @@ func runFit(ctx context.Context, e *env, args []string) error {
 		return fl.usageError("--max-iterations must be at least 1, not %d", a.maxIterations)
 	}
 	if err := checkOutput(a.out, a.data, a.model); err != nil {
+		return err
+	}
+	if err := checkWithout(fl, a); err != nil {
 		return err
 	}
 	return fitFile(ctx, e, a, fl.logger(e))
@@ -74,6 +94,12 @@ func fitFile(ctx context.Context, e *env, a fitArgs, log *slog.Logger) error {
 	spec, err := fit.ParseSpec(text)
 	if err != nil {
 		return specProblems(err, a.model, fmt.Sprintf("the model spec %s has problems; fix them and run again:", a.model))
+	}
+	var reduced *fit.Spec
+	if len(a.without) > 0 {
+		if reduced, err = reducedSpec(spec, a.without); err != nil {
+			return err
+		}
 	}
 	src, err := csvsource.Open(a.data)
 	if err != nil {
@@ -115,7 +141,14 @@ func fitFile(ctx context.Context, e *env, a fitArgs, log *slog.Logger) error {
 		return err
 	}
 	if notConverged {
-		return fmt.Errorf("%w. It was written to %s all the same, but predict and compare refuse it: allow more iterations (--max-iterations), or check that the family and link suit the response", err, a.out)
+		no := ""
+		if reduced != nil {
+			no = " No comparison was made without " + strings.Join(a.without, ", ") + "."
+		}
+		return fmt.Errorf("%w. It was written to %s all the same, but predict and compare refuse it: allow more iterations (--max-iterations), or check that the family and link suit the response.%s", err, a.out, no)
+	}
+	if reduced != nil {
+		return fitWithout(ctx, e, a, spec, reduced, src, doc, log)
 	}
 	return nil
 }
