@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"maps"
+	"math"
 	"slices"
 	"strings"
 	"unicode/utf8"
@@ -57,10 +58,17 @@ func writeOverall(b *strings.Builder, doc *fit.Document) {
 	row("edf", "%.2f in total, for %s", doc.EDFTotal, plural(len(doc.Coefficients), "coefficient", "coefficients"))
 	row("aic", "%.1f", doc.AIC)
 	lag := fmt.Sprintf("lag-one autocorrelation %+.2f in row order", doc.ResidualLag1)
-	if doc.ResidualLag1 > 0.3 {
+	if doc.ResidualLag1 > 0.3 && doc.Serial == nil {
 		lag += " · rows look serially correlated, so the bands are too narrow: consider serial: in the spec"
 	}
 	row("residuals", "%s", lag)
+	if sr := doc.Serial; sr != nil {
+		how := "fixed"
+		if sr.Estimated {
+			how = "estimated"
+		}
+		row("serial", "AR(1) errors along %s · ρ %.3f (%s) · %s", sr.Order, sr.Rho, how, plural(sr.Stretches, "stretch", "stretches"))
+	}
 	row("smoothing", "%s", criterionText(doc))
 	passes := plural(conv.Passes, "pass", "passes") + " over the rows"
 	if conv.Converged {
@@ -206,6 +214,18 @@ func writeSurface(l termLayout, t fit.TermResult) {
 }
 
 func writeFactor(l termLayout, t fit.TermResult) {
+	if t.Shrunk {
+		head := "levels shrunk towards zero (a random effect per level)"
+		if t.LevelVariance != nil {
+			head += fmt.Sprintf(" · level sd %.3g · edf %.1f of %d levels", math.Sqrt(*t.LevelVariance), t.EDF, len(t.Levels))
+		}
+		l.row("factor", t.Name, head)
+		for _, lv := range levelOrder(t.Levels) {
+			e := t.Levels[lv]
+			l.row("", "  "+lv, plusMinus(e.Estimate, e.SE, true))
+		}
+		return
+	}
 	l.row("factor", t.Name, "levels compared with "+t.Reference)
 	for _, lv := range levelOrder(t.Levels) {
 		e := t.Levels[lv]
