@@ -40,6 +40,9 @@ func TestCurvePerLevel(t *testing.T) {
 	if len(doc.Terms) != 4 || doc.Terms[0].Name != "x[site=S05]" || doc.Terms[1].ByLevel != "S07" {
 		t.Fatalf("terms %v", names(doc))
 	}
+	if inf := doc.Terms[1].Inference; inf == nil || inf.ZeroTest.PValue > 1e-6 || inf.StraightFits {
+		t.Errorf("S07's clear curve: inference %+v", inf)
+	}
 	for k, want := range []float64{1, 2, 0} {
 		g := doc.Terms[k].Grid
 		lo, hi := math.Inf(1), math.Inf(-1)

@@ -194,6 +194,41 @@ func writeCurve(l termLayout, t fit.TermResult) {
 	lo, hi := minMax(t.Grid.Fit)
 	xlo, xhi := minMax(t.Grid.X)
 	l.more(fmt.Sprintf("effect %s over %s %s", span(lo, hi, true), t.Columns[0], span(xlo, xhi, false)))
+	writeInference(l, t)
+}
+
+// writeInference gives a curve's or surface's tests: is it zero, and does a
+// straight line (a plane, for a surface) fit inside its 95% simultaneous
+// band.
+func writeInference(l termLayout, t fit.TermResult) {
+	inf := t.Inference
+	if inf == nil {
+		return
+	}
+	zero := fmt.Sprintf("zero everywhere? p %s", pValue(inf.ZeroTest.PValue))
+	shape := "line"
+	switch {
+	case t.Kind == fit.Surface && t.Interaction:
+		shape = "constant"
+	case t.Kind == fit.Surface:
+		shape = "plane"
+	}
+	straight := fmt.Sprintf("no straight %s fits its %.0f%% band", shape, 100*inf.SimultaneousLevel)
+	if inf.StraightFits {
+		straight = fmt.Sprintf("a straight %s fits inside its %.0f%% band", shape, 100*inf.SimultaneousLevel)
+	}
+	l.more(zero + " · " + straight)
+}
+
+// pValue prints a p-value with two significant digits, or as a bound.
+func pValue(p float64) string {
+	switch {
+	case p < 1e-4:
+		return "< 0.0001"
+	case p < 0.01:
+		return fmt.Sprintf("= %.1g", p)
+	}
+	return fmt.Sprintf("= %.2f", p)
 }
 
 func writeSurface(l termLayout, t fit.TermResult) {
@@ -211,6 +246,7 @@ func writeSurface(l termLayout, t fit.TermResult) {
 	x2lo, x2hi := minMax(g.X2)
 	l.more(fmt.Sprintf("effect %s over %s %s and %s %s", span(lo, hi, true),
 		t.Columns[0], span(x1lo, x1hi, false), t.Columns[1], span(x2lo, x2hi, false)))
+	writeInference(l, t)
 }
 
 func writeFactor(l termLayout, t fit.TermResult) {
