@@ -84,6 +84,15 @@ type DataRecord struct {
 	// Dropped counts rows left out for a missing or non-finite value, by
 	// the first such column of the row.
 	Dropped map[string]int `json:"dropped,omitempty"`
+	// Fingerprint identifies the set of rows used (hex of the sum of their
+	// 64-bit hashes: the same rows in any order give the same value).
+	Fingerprint string `json:"fingerprint"`
+	// Sketch holds the smallest row hashes (at most 128), from which
+	// RowOverlap estimates how far two fits share rows.
+	Sketch []uint64 `json:"sketch"`
+	// Window is the span of the time column (Options.TimeColumn, or the
+	// spec's serial order) over the rows used, when there is one.
+	Window *TimeWindow `json:"window,omitempty"`
 }
 
 // TermResult is one fitted term.

@@ -106,7 +106,8 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 		Scale: scale, ScaleEstimated: !m.fam.FixedScale(), EDFTotal: edf, ResidualDF: n - edf,
 		Intercept:    Estimate{Estimate: beta[0], SE: se(0)},
 		Coefficients: beta, Covariance: cov, Spec: m.spec,
-		Data: DataRecord{RowsRead: sum.rowsRead, RowsUsed: sum.rowsUsed, Dropped: sum.dropped},
+		Data: DataRecord{RowsRead: sum.rowsRead, RowsUsed: sum.rowsUsed, Dropped: sum.dropped,
+			Fingerprint: fmt.Sprintf("%016x", sum.rows.sum), Sketch: sum.rows.sketch, Window: sum.window},
 	}
 	if len(doc.Data.Dropped) == 0 {
 		doc.Data.Dropped = nil

@@ -14,6 +14,7 @@ import (
 	"fmt"
 	"log/slog"
 	"math"
+	"slices"
 
 	"github.com/curvewatch/curvewatch/fit/family"
 )
@@ -39,6 +40,10 @@ type Options struct {
 	Progress func(Progress)
 	// Logger receives debug records; nil discards them.
 	Logger *slog.Logger
+	// TimeColumn names a numeric column whose span over the rows is
+	// recorded as the fit's data window (default: the spec's serial order
+	// column, if any). It is read like any other column.
+	TimeColumn string
 }
 
 // Progress reports one finished pass over the rows.
@@ -59,6 +64,7 @@ type modelSetup struct {
 	need       Need
 	filter     rowFilter
 	covariates []string // numeric term columns
+	timeColumn string   // recorded as the data window, if set
 }
 
 // ErrNotConverged marks a fit whose iterations did not converge; the
@@ -112,7 +118,17 @@ func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
 		return nil, fmt.Errorf("model %q: %w", spec.Name, err)
 	}
 	numeric, text := spec.Columns()
-	m := &modelSetup{spec: spec, fam: fam, link: link,
+	timeCol := opt.TimeColumn
+	if timeCol == "" && spec.Serial != nil {
+		timeCol = spec.Serial.Order
+	}
+	if timeCol != "" && !slices.Contains(numeric, timeCol) {
+		if !slices.Contains(src.Columns(), timeCol) {
+			return nil, fmt.Errorf("model %q: the time column %q is not in the data", spec.Name, timeCol)
+		}
+		numeric = append(numeric, timeCol)
+	}
+	m := &modelSetup{spec: spec, fam: fam, link: link, timeColumn: timeCol,
 		need:   Need{Numeric: numeric, Text: text},
 		filter: rowFilter{numeric: numeric, text: text}}
 	for _, t := range spec.Terms {

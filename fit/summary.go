@@ -95,6 +95,10 @@ type summary struct {
 	// pairs holds, per surface term index, a reservoir sample of its two
 	// covariates (for masking grid cells far from any data).
 	pairs map[int]*pairSample
+	// rows hashes the used rows (fingerprint and sketch).
+	rows *rowHasher
+	// window is the time column's span, when there is a time column.
+	window *TimeWindow
 }
 
 // pairSample is a fixed-size reservoir sample of (x1, x2) pairs
@@ -201,6 +205,11 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 		}
 	}
 	pairRNG := rand.New(rand.NewPCG(3, 4))
+	s.rows = newRowHasher()
+	timeCol := m.timeColumn
+	if timeCol != "" {
+		s.window = &TimeWindow{Column: timeCol, First: math.Inf(1), Last: math.Inf(-1)}
+	}
 	for _, c := range m.covariates {
 		s.numeric[c] = &columnStats{}
 	}
@@ -271,6 +280,16 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 			col := b.Text[name]
 			for _, r := range keep {
 				lv[col[r]]++
+			}
+		}
+		for _, r := range keep {
+			s.rows.add(s.rows.hash(b, r, m.need))
+		}
+		if s.window != nil {
+			col := b.Numeric[timeCol]
+			for _, r := range keep {
+				s.window.First = math.Min(s.window.First, col[r])
+				s.window.Last = math.Max(s.window.Last, col[r])
 			}
 		}
 		s.rowsRead += b.Rows
