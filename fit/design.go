@@ -434,6 +434,37 @@ func surfaceDesign(t *termDesign, ts TermSpec, s *summary, interaction bool) err
 	return nil
 }
 
+// curveRow adds to row (length q) the constrained model-matrix row of a
+// curve term at x: B(x)·Z.
+func (t *termDesign) curveRow(x float64, row []float64) {
+	var buf [4]float64
+	first := t.curve.Row(x, buf[:])
+	for a := 0; a < 4; a++ {
+		for j := 0; j < t.q; j++ {
+			row[j] += buf[a] * t.z[(first+a)*t.q+j]
+		}
+	}
+}
+
+// surfaceRow adds to row (length q) the constrained model-matrix row of a
+// surface term at (x1, x2): (B₁(x1) ⊗ B₂(x2))·Z.
+func (t *termDesign) surfaceRow(x1, x2 float64, row []float64) {
+	var b1, b2 [4]float64
+	m1, m2 := t.margins[0], t.margins[1]
+	k2 := m2.Len()
+	f1 := m1.Row(x1, b1[:])
+	f2 := m2.Row(x2, b2[:])
+	for a := 0; a < 4; a++ {
+		for c := 0; c < 4; c++ {
+			raw := (f1+a)*k2 + f2 + c
+			w := b1[a] * b2[c]
+			for j := 0; j < t.q; j++ {
+				row[j] += w * t.z[raw*t.q+j]
+			}
+		}
+	}
+}
+
 // fill writes the term's non-zero raw entries for the rows keep of b into
 // idx and val, at offset off within each row's stride entries.
 func (t *termDesign) fill(b *Block, keep []int, stride, off int, idx []int32, val []float64) error {

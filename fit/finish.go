@@ -260,7 +260,6 @@ func curveGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points in
 		lo, hi = hi, lo
 	}
 	row := make([]float64, t.q)
-	var buf [4]float64
 	for i := range g.X {
 		x := lo + (hi-lo)*float64(i)/float64(points-1)
 		if i == points-1 {
@@ -268,12 +267,7 @@ func curveGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points in
 		}
 		g.X[i] = x
 		clear(row)
-		first := t.curve.Row(x, buf[:])
-		for k := 0; k < 4; k++ {
-			for j := 0; j < t.q; j++ {
-				row[j] += buf[k] * t.z[(first+k)*t.q+j]
-			}
-		}
+		t.curveRow(x, row)
 		g.Fit[i], g.SE[i] = rowFitSE(row, t.cstart, beta, v, pc)
 	}
 	return g
@@ -303,24 +297,12 @@ func surfaceGrid(t *termDesign, rec *BasisRecord, beta, v []float64, pc, points 
 		g.X1[i] = m1.Lo + (m1.Hi-m1.Lo)*float64(i)/float64(points-1)
 		g.X2[i] = m2.Lo + (m2.Hi-m2.Lo)*float64(i)/float64(points-1)
 	}
-	k2 := m2.Len()
 	row := make([]float64, t.q)
-	var b1, b2 [4]float64
 	for _, x1 := range g.X1 {
 		fitRow, seRow := make([]float64, points), make([]float64, points)
 		for j, x2 := range g.X2 {
 			clear(row)
-			f1 := m1.Row(x1, b1[:])
-			f2 := m2.Row(x2, b2[:])
-			for a := 0; a < 4; a++ {
-				for c := 0; c < 4; c++ {
-					raw := (f1+a)*k2 + f2 + c
-					w := b1[a] * b2[c]
-					for q := 0; q < t.q; q++ {
-						row[q] += w * t.z[raw*t.q+q]
-					}
-				}
-			}
+			t.surfaceRow(x1, x2, row)
 			fitRow[j], seRow[j] = rowFitSE(row, t.cstart, beta, v, pc)
 		}
 		g.Fit = append(g.Fit, fitRow)

@@ -49,15 +49,8 @@ func gridOf(t *termDesign, tr *TermResult) *termGrid {
 			k = 1
 		}
 		tg := &termGrid{m: len(xs), q: t.q, g: make([]float64, len(xs)*t.q), line: make([]float64, len(xs)*k), k: k}
-		var buf [4]float64
 		for i, x := range xs {
-			row := tg.g[i*t.q : (i+1)*t.q]
-			first := t.curve.Row(x, buf[:])
-			for a := 0; a < 4; a++ {
-				for j := 0; j < t.q; j++ {
-					row[j] += buf[a] * t.z[(first+a)*t.q+j]
-				}
-			}
+			t.curveRow(x, tg.g[i*t.q:(i+1)*t.q])
 			tg.line[i*k] = 1
 			if k == 2 {
 				tg.line[i*k+1] = unitScale(x, lo, hi)
@@ -67,7 +60,6 @@ func gridOf(t *termDesign, tr *TermResult) *termGrid {
 	case t.spec.Kind == Surface && t.margins[0] != nil && t.margins[1] != nil && tr.SurfaceGrid != nil:
 		sg := tr.SurfaceGrid
 		m1, m2 := t.margins[0], t.margins[1]
-		k2 := m2.Len()
 		m := len(sg.X1) * len(sg.X2)
 		// "Straight" for a surface is a plane, without a slope along a
 		// cyclic margin (it could not wrap); for an interaction-only
@@ -82,22 +74,10 @@ func gridOf(t *termDesign, tr *TermResult) *termGrid {
 			k++
 		}
 		tg := &termGrid{m: m, q: t.q, g: make([]float64, m*t.q), line: make([]float64, m*k), k: k}
-		var b1, b2 [4]float64
 		i := 0
 		for _, x1 := range sg.X1 {
 			for _, x2 := range sg.X2 {
-				row := tg.g[i*t.q : (i+1)*t.q]
-				f1 := m1.Row(x1, b1[:])
-				f2 := m2.Row(x2, b2[:])
-				for a := 0; a < 4; a++ {
-					for c := 0; c < 4; c++ {
-						raw := (f1+a)*k2 + f2 + c
-						w := b1[a] * b2[c]
-						for j := 0; j < t.q; j++ {
-							row[j] += w * t.z[raw*t.q+j]
-						}
-					}
-				}
+				t.surfaceRow(x1, x2, tg.g[i*t.q:(i+1)*t.q])
 				c := i * k
 				tg.line[c] = 1
 				if slope1 {
