@@ -16,6 +16,7 @@ var (
 	sondeModel    = filepath.Join(cliData, "river-sonde", "model.yaml")
 	sondeNewCSV   = filepath.Join(cliData, "river-sonde", "new.csv")
 	alarmsModel   = filepath.Join(cliData, "alarm-counts", "model.yaml")
+	bySiteModel   = filepath.Join(cliData, "sites-by", "model.yaml")
 	badSpecModel  = filepath.Join(cliData, "bad-spec", "model.yaml")
 	misspeltModel = filepath.Join(cliData, "missing-column", "model.yaml")
 	unseenCSV     = filepath.Join(cliData, "unseen-level", "new.csv")
@@ -34,6 +35,7 @@ func TestFitWritesDocumentAndSummary(t *testing.T) {
 	for _, c := range []struct{ name, model string }{
 		{"river-sonde", sondeModel},
 		{"alarm-counts", alarmsModel},
+		{"sites-by", bySiteModel},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			r, out := fitTo(t, c.model)
