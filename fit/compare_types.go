@@ -6,7 +6,10 @@ package fit
 // (above PracticalShift on the link scale).
 type Tolerance struct {
 	// PracticalShift is the smallest curve, surface, linear or level shift
-	// worth an alert, in link-scale units (default 0.5).
+	// worth an alert, in link-scale units (default 0.5). Compare uses it as
+	// given: 0 means every real shift breaches (statistics only). The
+	// default enters through ToleranceFromSpec, DefaultTolerance or
+	// WithDefaults.
 	PracticalShift float64 `json:"practical_shift"`
 	// Level is the simultaneous band level for calling a shift real
 	// (default 0.99).
@@ -20,8 +23,9 @@ type Tolerance struct {
 	// Multiplicity is "holm" (default: Holm's step-down adjustment across
 	// the terms of one comparison) or "none".
 	Multiplicity string `json:"multiplicity"`
-	// AllowOverlap lets fits whose rows overlap be compared, with the
-	// documented correction, instead of refusing.
+	// AllowOverlap lets fits whose rows or time windows overlap be
+	// compared, with the documented correction (see OverlapNote), instead
+	// of refusing. Fits of exactly the same rows are refused regardless.
 	AllowOverlap bool `json:"allow_overlap"`
 }
 
@@ -49,14 +53,25 @@ type ShiftReport struct {
 	// Terms has one entry per curve, surface, linear and factor term.
 	Terms []TermShift `json:"terms"`
 	// Level compares the overall level (intercept plus the curves' means
-	// over the common grid), apart from shape changes.
+	// over the common grid), apart from shape changes: precisely, the
+	// intercept plus the means of the curves and surfaces over their common
+	// grids (for by-level curves, the reference fit's first level's) plus
+	// each linear term at the middle of its common range, at the baseline
+	// levels of the factors — the mean linear predictor over the common
+	// covariate box. Its Verdict is VerdictNotCompared when a factor's
+	// baseline level is missing from the candidate.
 	Level LevelShift `json:"level"`
 	// Noise compares the scale estimates (gaussian and gamma only).
 	Noise *NoiseChange `json:"noise,omitempty"`
 	// Degradation is set when candidate rows were given.
 	Degradation *Degradation `json:"degradation,omitempty"`
+	// Tests is the number of tests in the multiplicity family (the
+	// compared terms and the level).
+	Tests int `json:"tests"`
 	// Breach is true when any term, the level, or the predictive deviance
-	// breaches.
+	// breaches. A noise change alone does not breach: it is reported in
+	// Noise (a sensor going noisy is a finding, but not a shifted
+	// relationship).
 	Breach   bool     `json:"breach"`
 	Warnings []string `json:"warnings,omitempty"`
 }
@@ -81,6 +96,10 @@ type OverlapNote struct {
 	// Correction says how overlapping rows were accounted for ("" when the
 	// rows are disjoint).
 	Correction string `json:"correction,omitempty"`
+	// Shared is s, the estimated fraction of rows the fits share, from the
+	// resemblance J: s = 2J/(1+J). Compare scales the variance of every
+	// difference by (1 − s).
+	Shared float64 `json:"shared,omitempty"`
 }
 
 // TermShift compares one term of the two fits.
@@ -114,8 +133,26 @@ type TermShift struct {
 	// ShapeChange is "was straight, now curved", "was curved, now
 	// straight" or "" (from each fit's could-be-straight check).
 	ShapeChange string `json:"shape_change,omitempty"`
-	// Levels holds per-level shifts of a factor.
+	// Levels holds per-level shifts of a factor (unadjusted per-level
+	// z-tests; the term's verdict rests on the largest |z|).
 	Levels map[string]LevelShift `json:"levels,omitempty"`
+	// Surface holds a surface comparison for plotting.
+	Surface *SurfaceShiftGrid `json:"surface,omitempty"`
+	// Note explains anything particular about the comparison (a shrunk
+	// factor's level variances, a level present in one fit only).
+	Note string `json:"note,omitempty"`
+}
+
+// SurfaceShiftGrid tabulates a surface comparison on the common
+// rectangle: Delta[i][j] and SE[i][j] at (X1[i], X2[j]). Points either fit
+// marks far from its data are Excluded (Delta and SE 0 there) and take no
+// part in the test.
+type SurfaceShiftGrid struct {
+	X1       []float64   `json:"x1"`
+	X2       []float64   `json:"x2"`
+	Delta    [][]float64 `json:"delta"`
+	SE       [][]float64 `json:"se"`
+	Excluded [][]bool    `json:"excluded"`
 }
 
 // ShiftGrid tabulates a curve comparison.
@@ -136,6 +173,9 @@ type LevelShift struct {
 	SE        float64 `json:"se"`
 	Z         float64 `json:"z"`
 	PValue    float64 `json:"p_value"`
+	// PAdjusted is the p-value after the multiplicity adjustment (set on
+	// the model's level; per-level factor entries leave it 0).
+	PAdjusted float64 `json:"p_adjusted,omitempty"`
 	Verdict   string  `json:"verdict"`
 }
 
@@ -163,6 +203,14 @@ type Degradation struct {
 	Optimism          float64 `json:"optimism"`
 	Ratio             float64 `json:"ratio"`
 	Breach            bool    `json:"breach"`
+	// HeldOut says the rows were neither fit's (no optimism correction).
+	HeldOut bool `json:"held_out"`
+	// Skipped counts rows left out for a missing value.
+	Skipped int `json:"skipped"`
+	// Extrapolated counts scored rows outside the reference's covariate
+	// ranges: the reference extrapolates there, which alone can raise the
+	// ratio.
+	Extrapolated int `json:"extrapolated"`
 }
 
 // CompareFormat names the layout of ShiftReport.

@@ -33,7 +33,6 @@ func inferenceFit(family fit.Family, x, y []float64) (*fit.TermInference, error)
 	return inf, nil
 }
 
-
 // simulateInference runs reps fits of n rows with x ~ U(0, 1) and the
 // response drawn by draw, split over two goroutines with their own fixed
 // seeds, and returns the inferences in a fixed order.

@@ -28,6 +28,7 @@ type env struct {
 var commands = []command{
 	{name: "fit", summary: "fit a model spec to CSV rows; writes the fit document, prints a summary", run: runFit},
 	{name: "predict", summary: "evaluate a fit document on new CSV rows; adds link, link_se, response", run: runPredict},
+	{name: "compare", summary: "compare a candidate fit with a reference fit of the same model; exit 3 on a breach", run: runCompare},
 }
 
 func lookup(name string) (command, bool) {
