@@ -58,6 +58,9 @@ type termDesign struct {
 	// byLevel, on a curve expanded from a `by` factor, is the level whose
 	// rows the curve applies to (byColumn names the factor).
 	byColumn, byLevel string
+	// specIndex is the term's position in the spec (by-level curves share
+	// their spec term's).
+	specIndex int
 	aliased           []string // names of raw columns dropped as aliased
 	q                 int      // constrained coefficients
 	cstart            int      // first constrained coefficient
@@ -96,7 +99,7 @@ func buildDesign(m *modelSetup, s *summary) (*design, error) {
 				return nil, fmt.Errorf("%s: the by column %q has no levels in the used rows", where, ts.By)
 			}
 			for _, level := range sortLevels(lv) {
-				t := &termDesign{spec: ts, name: ts.Name() + "[" + ts.By + "=" + level + "]", start: d.p, byColumn: ts.By, byLevel: level}
+				t := &termDesign{spec: ts, name: ts.Name() + "[" + ts.By + "=" + level + "]", start: d.p, byColumn: ts.By, byLevel: level, specIndex: i}
 				if err := curveDesign(t, ts, s); err != nil {
 					return nil, fmt.Errorf("%s: %w", where, err)
 				}
@@ -109,7 +112,7 @@ func buildDesign(m *modelSetup, s *summary) (*design, error) {
 			}
 			continue
 		}
-		t := &termDesign{spec: ts, name: ts.Name(), start: d.p}
+		t := &termDesign{spec: ts, name: ts.Name(), start: d.p, specIndex: i}
 		switch ts.Kind {
 		case Curve:
 			if err := curveDesign(t, ts, s); err != nil {

@@ -152,7 +152,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 	}
 	doc.Convergence = Convergence{Converged: st.conv, Iterations: st.iter, RelativeChange: st.relChg, Passes: f.passes, Accumulation: acc}
 	lambda := st.sel.lambdaAt(st.rho)
-	for ti, t := range d.terms {
+	for _, t := range d.terms {
 		tr := TermResult{Name: t.name, Kind: t.spec.Kind, Columns: t.spec.Columns, Coefficients: [2]int{t.cstart, t.q}, Aliased: t.aliased, Interaction: t.interaction, By: t.byColumn, ByLevel: t.byLevel}
 		for c := 0; c < t.q; c++ {
 			tr.EDF += edfCoef[t.cstart+c]
@@ -182,7 +182,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 				tr.Grid = curveGrid(t, tr.Basis, beta, v, pc, f.opt.GridPoints)
 			} else {
 				tr.SurfaceGrid = surfaceGrid(t, tr.Basis, beta, v, pc, f.opt.SurfaceGridPoints)
-				markFar(tr.SurfaceGrid, sum.pairs[ti], tr.Range)
+				markFar(tr.SurfaceGrid, sum.pairs[t.specIndex], tr.Range)
 			}
 		case Linear:
 			if t.q == 1 {

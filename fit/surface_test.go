@@ -144,3 +144,35 @@ func TestSurfaceGridMarksFarPoints(t *testing.T) {
 		t.Errorf("grid %d points a side; far at the top corner %v, at the origin %v", len(g.X1), g.Far[last][last], g.Far[0][0])
 	}
 }
+
+// A surface after a curve split by a factor still finds its own data
+// sample: its grid is not all marked far.
+func TestSurfaceAfterByCurveKeepsItsSample(t *testing.T) {
+	rng := rand.New(rand.NewPCG(6, 6))
+	data := sites(rng, 900, []string{"A", "B", "C"}, []float64{1, 1, 1}, []float64{0, 0, 0})
+	x2 := make([]float64, 900)
+	for i := range x2 {
+		x2[i] = rng.Float64()
+	}
+	data.Numeric["x2"] = x2
+	spec := curveSpec(fit.Gaussian, fit.Identity,
+		fit.TermSpec{Kind: fit.Curve, Columns: []string{"x"}, Basis: fit.Cubic, Knots: fit.QuantileKnots, Size: []int{5}, By: "site"},
+		factor("site"),
+		fit.TermSpec{Kind: fit.Surface, Columns: []string{"x", "x2"}, Basis: fit.PSpline, Knots: fit.EvenKnots, Size: []int{4, 4}})
+	doc, err := fit.Fit(context.Background(), spec, data, fit.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := doc.Terms[len(doc.Terms)-1].SurfaceGrid
+	far := 0
+	for i := range g.Far {
+		for j := range g.Far[i] {
+			if g.Far[i][j] {
+				far++
+			}
+		}
+	}
+	if far > len(g.Far)*len(g.Far[0])/4 {
+		t.Errorf("%d of %d grid points marked far from uniform data", far, len(g.Far)*len(g.Far[0]))
+	}
+}

@@ -1,0 +1,112 @@
+package history
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+
+	"github.com/curvewatch/curvewatch/fit"
+	"github.com/jackc/pgerrcode"
+	"github.com/jackc/pgx/v5"
+)
+
+// RecordComparison stores a shift report comparing candidate fit candID
+// with reference fit refID of the model — the report as JSONB and one
+// comparison_terms row per term — in one transaction, and returns the
+// comparison's id. Both fits must be fits of the model.
+func (s *Store) RecordComparison(ctx context.Context, model string, refID, candID int64, rep *fit.ShiftReport) (int64, error) {
+	var id int64
+	err := s.InTx(ctx, func(tx pgx.Tx) error {
+		var err error
+		id, err = s.RecordComparisonTx(ctx, tx, model, refID, candID, rep)
+		return err
+	})
+	return id, err
+}
+
+// RecordComparisonTx is RecordComparison inside the caller's transaction.
+func (s *Store) RecordComparisonTx(ctx context.Context, tx pgx.Tx, model string, refID, candID int64, rep *fit.ShiftReport) (int64, error) {
+	id, err := recordComparison(ctx, tx, model, refID, candID, rep)
+	if err != nil {
+		return 0, fmt.Errorf("history: record comparison of fits %d and %d of model %q: %w", refID, candID, model, err)
+	}
+	return id, nil
+}
+
+func recordComparison(ctx context.Context, tx pgx.Tx, model string, refID, candID int64, rep *fit.ShiftReport) (int64, error) {
+	if rep == nil {
+		return 0, errors.New("no shift report")
+	}
+	body, err := json.Marshal(rep)
+	if err != nil {
+		return 0, fmt.Errorf("encode the report: %w", err)
+	}
+	terms := make([][]any, len(rep.Terms))
+	for i, t := range rep.Terms {
+		terms[i] = []any{int64(0), t.Name, string(t.Kind), t.Verdict, t.Score, t.Size, t.PAdjusted}
+	}
+	// A savepoint, so that a refused insert leaves the caller's
+	// transaction usable.
+	sub, err := tx.Begin(ctx)
+	if err != nil {
+		return 0, err
+	}
+	defer sub.Rollback(ctx)
+	var id int64
+	err = sub.QueryRow(ctx, `
+		INSERT INTO comparisons (model, reference_fit_id, candidate_fit_id, breach, report)
+		VALUES ($1, $2, $3, $4, $5) RETURNING id`, model, refID, candID, rep.Breach, body).Scan(&id)
+	switch pgCode(err) {
+	case "":
+	case pgerrcode.ForeignKeyViolation:
+		return 0, fmt.Errorf("%w: fits %d and %d must both be fits of model %q", ErrNoFit, refID, candID, model)
+	case pgerrcode.CheckViolation:
+		return 0, fmt.Errorf("a fit cannot be compared with itself: %w", err)
+	default:
+		return 0, err
+	}
+	if err != nil {
+		return 0, err
+	}
+	for _, t := range terms {
+		t[0] = id
+	}
+	if len(terms) > 0 {
+		if _, err := sub.CopyFrom(ctx, pgx.Identifier{"comparison_terms"},
+			[]string{"comparison_id", "term", "kind", "verdict", "score", "size", "p_adjusted"}, pgx.CopyFromRows(terms)); err != nil {
+			return 0, fmt.Errorf("store the terms: %w", err)
+		}
+	}
+	return id, sub.Commit(ctx)
+}
+
+// TermResult is one row of comparison_terms.
+type TermResult struct {
+	Term      string
+	Kind      fit.TermKind
+	Verdict   string
+	Score     float64
+	Size      float64
+	PAdjusted float64
+}
+
+// ComparisonTerms returns the per-term rows of a comparison, in term order
+// by name.
+func (s *Store) ComparisonTerms(ctx context.Context, comparisonID int64) ([]TermResult, error) {
+	rows, err := s.pool.Query(ctx, `
+		SELECT term, kind, verdict, score, size, p_adjusted FROM comparison_terms
+		WHERE comparison_id = $1 ORDER BY term`, comparisonID)
+	if err != nil {
+		return nil, fmt.Errorf("history: terms of comparison %d: %w", comparisonID, err)
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (TermResult, error) {
+		var t TermResult
+		err := r.Scan(&t.Term, &t.Kind, &t.Verdict, &t.Score, &t.Size, &t.PAdjusted)
+		return t, err
+	})
+	if err != nil {
+		return nil, fmt.Errorf("history: terms of comparison %d: %w", comparisonID, err)
+	}
+	return out, nil
+}

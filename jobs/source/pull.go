@@ -1,0 +1,259 @@
+// Package source reads a model's rows from the team's PostgreSQL table:
+// the catalogue of a source table, and a fit.Source that streams a time
+// window of rows inside one read-only snapshot.
+package source
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"regexp"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
+	"github.com/jackc/pgx/v5/pgxpool"
+
+	"github.com/curvewatch/curvewatch/fit"
+)
+
+// Query selects a model's rows.
+type Query struct {
+	// Table is "table" or "schema.table"; each part is validated and then
+	// quoted as an identifier, never pasted.
+	Table string
+	// Time is the window and watermark column (timestamp, timestamptz or
+	// date). Delivered as seconds since 1970 when a fit asks for it.
+	Time string
+	// Where is an optional predicate from the (trusted) config. It runs
+	// inside a READ ONLY transaction with a statement timeout, so it cannot
+	// change data or run forever.
+	Where string
+	// From and To bound the window: From ≤ time < To.
+	From, To time.Time
+	// StatementTimeout bounds each statement (default 5 minutes).
+	StatementTimeout time.Duration
+	// BlockRows is the rows per block (default 4096).
+	BlockRows int
+}
+
+var identRE = regexp.MustCompile(`^[A-Za-z_][A-Za-z0-9_$]*$`)
+
+// QuoteTable validates and quotes "table" or "schema.table".
+func QuoteTable(name string) (string, error) {
+	parts := strings.Split(name, ".")
+	if len(parts) > 2 {
+		return "", fmt.Errorf("table %q: use table or schema.table", name)
+	}
+	for i, p := range parts {
+		if !identRE.MatchString(p) {
+			return "", fmt.Errorf("table %q: %q is not a plain identifier (letters, digits, _ and $, not starting with a digit)", name, p)
+		}
+		parts[i] = pgx.Identifier{p}.Sanitize()
+	}
+	return strings.Join(parts, "."), nil
+}
+
+// Rows is a fit.Source over one time window of a table, read inside one
+// REPEATABLE READ, READ ONLY transaction: every pass of a fit sees the same
+// rows in the same order, whatever commits meanwhile. Close ends the
+// transaction.
+type Rows struct {
+	q       Query
+	table   string
+	columns []string
+	tx      pgx.Tx
+	conn    *pgxpool.Conn
+	// Count and Newest describe the window after Open: the number of rows
+	// and the newest time value (zero when empty).
+	Count  int64
+	Newest time.Time
+}
+
+// Open starts the snapshot and checks the table and time column exist.
+func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
+	table, err := QuoteTable(q.Table)
+	if err != nil {
+		return nil, err
+	}
+	if !identRE.MatchString(q.Time) {
+		return nil, fmt.Errorf("time column %q is not a plain identifier", q.Time)
+	}
+	if q.StatementTimeout <= 0 {
+		q.StatementTimeout = 5 * time.Minute
+	}
+	if q.BlockRows <= 0 {
+		q.BlockRows = 4096
+	}
+	conn, err := pool.Acquire(ctx)
+	if err != nil {
+		return nil, fmt.Errorf("source %s: connect: %w", q.Table, err)
+	}
+	tx, err := conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
+	if err != nil {
+		conn.Release()
+		return nil, fmt.Errorf("source %s: begin read-only transaction: %w", q.Table, err)
+	}
+	r := &Rows{q: q, table: table, tx: tx, conn: conn}
+	fail := func(err error) (*Rows, error) {
+		r.Close()
+		return nil, err
+	}
+	if _, err := tx.Exec(ctx, fmt.Sprintf("SET LOCAL statement_timeout = %d", q.StatementTimeout.Milliseconds())); err != nil {
+		return fail(fmt.Errorf("source %s: set statement timeout: %w", q.Table, err))
+	}
+	// Columns, in table order (the query never selects *).
+	rs, err := tx.Query(ctx, "SELECT * FROM "+table+" LIMIT 0")
+	if err != nil {
+		return fail(fmt.Errorf("source %s: %w", q.Table, err))
+	}
+	for _, fd := range rs.FieldDescriptions() {
+		r.columns = append(r.columns, fd.Name)
+	}
+	rs.Close()
+	var newest pgtype.Timestamptz
+	err = tx.QueryRow(ctx, "SELECT count(*), max("+pgx.Identifier{q.Time}.Sanitize()+")::timestamptz FROM "+table+" WHERE "+r.predicate(), q.From, q.To).Scan(&r.Count, &newest)
+	if err != nil {
+		return fail(fmt.Errorf("source %s: count the window's rows: %w", q.Table, err))
+	}
+	if newest.Valid {
+		r.Newest = newest.Time
+	}
+	return r, nil
+}
+
+// predicate is the window condition with $1 = From and $2 = To, plus the
+// config's predicate.
+func (r *Rows) predicate() string {
+	t := pgx.Identifier{r.q.Time}.Sanitize()
+	p := t + " >= $1 AND " + t + " < $2"
+	if strings.TrimSpace(r.q.Where) != "" {
+		p += " AND (" + r.q.Where + ")"
+	}
+	return p
+}
+
+// Close ends the snapshot (rolling back: nothing was written).
+func (r *Rows) Close() {
+	if r.tx != nil {
+		_ = r.tx.Rollback(context.Background())
+		r.tx = nil
+	}
+	if r.conn != nil {
+		r.conn.Release()
+		r.conn = nil
+	}
+}
+
+// Columns lists the table's columns.
+func (r *Rows) Columns() []string { return append([]string(nil), r.columns...) }
+
+// Scan streams the window's rows in time order (ties in physical order,
+// stable inside the snapshot). Numeric columns are cast to double
+// precision (NULL → NaN, which the engine drops and counts); text columns
+// to text (NULL → ""); the time column, when asked for as a number, is
+// seconds since 1970.
+func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) error) error {
+	if r.tx == nil {
+		return errors.New("source: Scan after Close")
+	}
+	var sel []string
+	for _, c := range need.Numeric {
+		id := pgx.Identifier{c}.Sanitize()
+		if c == r.q.Time {
+			sel = append(sel, "extract(epoch from "+id+")::float8")
+		} else {
+			sel = append(sel, id+"::float8")
+		}
+	}
+	for _, c := range need.Text {
+		sel = append(sel, pgx.Identifier{c}.Sanitize()+"::text")
+	}
+	if len(sel) == 0 {
+		sel = []string{"1"}
+	}
+	sql := "SELECT " + strings.Join(sel, ", ") + " FROM " + r.table + " WHERE " + r.predicate() +
+		" ORDER BY " + pgx.Identifier{r.q.Time}.Sanitize() + ", ctid"
+	rows, err := r.tx.Query(ctx, sql, r.q.From, r.q.To)
+	if err != nil {
+		return fmt.Errorf("source %s: %w", r.q.Table, err)
+	}
+	defer rows.Close()
+	nNum, nText := len(need.Numeric), len(need.Text)
+	b := &fit.Block{Numeric: map[string][]float64{}, Text: map[string][]string{}}
+	num := make([][]float64, nNum)
+	txt := make([][]string, nText)
+	for i := range num {
+		num[i] = make([]float64, 0, r.q.BlockRows)
+	}
+	for i := range txt {
+		txt[i] = make([]string, 0, r.q.BlockRows)
+	}
+	f8 := make([]pgtype.Float8, nNum)
+	tx := make([]pgtype.Text, nText)
+	dest := make([]any, 0, nNum+nText)
+	for i := range f8 {
+		dest = append(dest, &f8[i])
+	}
+	for i := range tx {
+		dest = append(dest, &tx[i])
+	}
+	var ordinal int64
+	flush := func() error {
+		if len(b.Line) == 0 {
+			return nil
+		}
+		b.Rows = len(b.Line)
+		for i, c := range need.Numeric {
+			b.Numeric[c] = num[i]
+		}
+		for i, c := range need.Text {
+			b.Text[c] = txt[i]
+		}
+		if err := fn(b); err != nil {
+			return err
+		}
+		for i := range num {
+			num[i] = num[i][:0]
+		}
+		for i := range txt {
+			txt[i] = txt[i][:0]
+		}
+		b.Line = b.Line[:0]
+		return ctx.Err()
+	}
+	for rows.Next() {
+		if len(dest) > 0 {
+			if err := rows.Scan(dest...); err != nil {
+				return fmt.Errorf("source %s: row %d: %w", r.q.Table, ordinal+1, err)
+			}
+		}
+		ordinal++
+		for i := range f8 {
+			v := math.NaN()
+			if f8[i].Valid {
+				v = f8[i].Float64
+			}
+			num[i] = append(num[i], v)
+		}
+		for i := range tx {
+			s := ""
+			if tx[i].Valid {
+				s = tx[i].String
+			}
+			txt[i] = append(txt[i], s)
+		}
+		b.Line = append(b.Line, ordinal)
+		if len(b.Line) == r.q.BlockRows {
+			if err := flush(); err != nil {
+				return err
+			}
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return fmt.Errorf("source %s: %w", r.q.Table, err)
+	}
+	return flush()
+}

@@ -1,0 +1,118 @@
+package source_test
+
+import (
+	"context"
+	"math"
+	"testing"
+	"time"
+
+	"github.com/jackc/pgx/v5/pgxpool"
+
+	"github.com/curvewatch/curvewatch/fit"
+	"github.com/curvewatch/curvewatch/internal/pgtest"
+	"github.com/curvewatch/curvewatch/jobs/source"
+)
+
+// readings creates a sonde table in the test schema with n rows an hour
+// apart from t0 (invented data), some with NULLs.
+func readings(t *testing.T, ctx context.Context, pool *pgxpool.Pool, n int, t0 time.Time) {
+	t.Helper()
+	_, err := pool.Exec(ctx, `CREATE TABLE sonde_readings (
+		observed_at timestamptz NOT NULL, site text, water_temp real, flow numeric, dissolved_oxygen double precision, alarms integer)`)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := 0; i < n; i++ {
+		temp := 5 + 15*math.Sin(float64(i)/50)
+		var flow any = 10 + float64(i%7)
+		if i%97 == 3 {
+			flow = nil
+		}
+		site := []string{"S05", "S07"}[i%2]
+		_, err := pool.Exec(ctx, `INSERT INTO sonde_readings VALUES ($1, $2, $3, $4, $5, $6)`,
+			t0.Add(time.Duration(i)*time.Hour), site, temp, flow, 12-0.2*temp+0.01*float64(i%7), i%3)
+		if err != nil {
+			t.Fatal(err)
+		}
+	}
+}
+
+func TestRowsStreamAWindowInOneSnapshot(t *testing.T) {
+	ctx := context.Background()
+	url, _ := pgtest.Schema(t)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pool.Close()
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	readings(t, ctx, pool, 500, t0)
+
+	rows, err := source.Open(ctx, pool, source.Query{Table: "sonde_readings", Time: "observed_at", Where: "site = 'S05'",
+		From: t0.Add(100 * time.Hour), To: t0.Add(400 * time.Hour), BlockRows: 64})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer rows.Close()
+	if rows.Count != 150 || !rows.Newest.Equal(t0.Add(398*time.Hour)) {
+		t.Fatalf("count %d newest %v; want 150 rows, newest at hour 398", rows.Count, rows.Newest)
+	}
+	// A row committed after the snapshot began is not seen by later passes.
+	if _, err := pool.Exec(ctx, `INSERT INTO sonde_readings VALUES ($1, 'S05', 9, 11, 10, 0)`, t0.Add(200*time.Hour+time.Minute)); err != nil {
+		t.Fatal(err)
+	}
+	need := fit.Need{Numeric: []string{"observed_at", "water_temp", "flow", "dissolved_oxygen", "alarms"}, Text: []string{"site"}}
+	scan := func() (n int, nulls int, first float64) {
+		first = math.NaN()
+		err := rows.Scan(ctx, need, func(b *fit.Block) error {
+			for r := 0; r < b.Rows; r++ {
+				if math.IsNaN(first) {
+					first = b.Numeric["observed_at"][r]
+				}
+				if math.IsNaN(b.Numeric["flow"][r]) {
+					nulls++
+				}
+				if b.Text["site"][r] != "S05" {
+					t.Errorf("row from site %q", b.Text["site"][r])
+				}
+			}
+			n += b.Rows
+			return nil
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return n, nulls, first
+	}
+	n1, nulls1, first := scan()
+	n2, nulls2, _ := scan()
+	if n1 != 150 || n2 != 150 || nulls1 != nulls2 {
+		t.Errorf("passes saw %d and %d rows (NULL flows %d, %d); want 150 both times", n1, n2, nulls1, nulls2)
+	}
+	if want := float64(t0.Add(100 * time.Hour).Unix()); first != want {
+		t.Errorf("first time %v, want %v (seconds since 1970)", first, want)
+	}
+	// The rows feed a fit directly.
+	spec, err := fit.ParseSpec([]byte("name: s05\nresponse: dissolved_oxygen\nterms:\n  - curve: water_temp\n    size: 6\n  - linear: flow\n"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	doc, err := fit.Fit(ctx, spec, rows, fit.Options{TimeColumn: "observed_at"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if doc.Data.RowsRead != 150 || doc.Data.Dropped["flow"] == 0 || doc.Data.Window == nil {
+		t.Errorf("data record %+v", doc.Data)
+	}
+}
+
+func TestQuoteTableRejectsInjection(t *testing.T) {
+	for _, bad := range []string{"a;drop table x", "a.b.c", `x"y`, "", "1abc"} {
+		if _, err := source.QuoteTable(bad); err == nil {
+			t.Errorf("%q accepted", bad)
+		}
+	}
+	if q, err := source.QuoteTable("river.sonde_readings"); err != nil || q != `"river"."sonde_readings"` {
+		t.Errorf("got %q, %v", q, err)
+	}
+}

@@ -1,0 +1,4 @@
+DROP TABLE watermarks;
+DROP TABLE baselines;
+DROP TABLE comparison_terms;
+DROP TABLE comparisons;

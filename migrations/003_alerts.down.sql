@@ -1,0 +1,2 @@
+DROP TABLE alert_events;
+DROP TABLE alert_states;
