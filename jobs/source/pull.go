@@ -1,14 +1,13 @@
-// Package source reads a model's rows from the team's PostgreSQL table:
-// the catalogue of a source table, and a fit.Source that streams a time
-// window of rows inside one read-only snapshot.
 package source
+
+// This file holds the reading side: Rows, a fit.Source that streams one
+// time window of a source table inside one read-only snapshot.
 
 import (
 	"context"
 	"errors"
 	"fmt"
 	"math"
-	"regexp"
 	"strings"
 	"time"
 
@@ -21,9 +20,8 @@ import (
 
 // Query selects a model's rows.
 type Query struct {
-	// Table is "table" or "schema.table"; each part is validated and then
-	// quoted as an identifier, never pasted.
-	Table string
+	// Table is the source table; its name is quoted, never pasted.
+	Table Table
 	// Time is the window and watermark column (timestamp, timestamptz or
 	// date). Delivered as seconds since 1970 when a fit asks for it.
 	Time string
@@ -37,23 +35,6 @@ type Query struct {
 	StatementTimeout time.Duration
 	// BlockRows is the rows per block (default 4096).
 	BlockRows int
-}
-
-var identRE = regexp.MustCompile(`^[A-Za-z_][A-Za-z0-9_$]*$`)
-
-// QuoteTable validates and quotes "table" or "schema.table".
-func QuoteTable(name string) (string, error) {
-	parts := strings.Split(name, ".")
-	if len(parts) > 2 {
-		return "", fmt.Errorf("table %q: use table or schema.table", name)
-	}
-	for i, p := range parts {
-		if !identRE.MatchString(p) {
-			return "", fmt.Errorf("table %q: %q is not a plain identifier (letters, digits, _ and $, not starting with a digit)", name, p)
-		}
-		parts[i] = pgx.Identifier{p}.Sanitize()
-	}
-	return strings.Join(parts, "."), nil
 }
 
 // Rows is a fit.Source over one time window of a table, read inside one
@@ -74,13 +55,13 @@ type Rows struct {
 
 // Open starts the snapshot and checks the table and time column exist.
 func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
-	table, err := QuoteTable(q.Table)
-	if err != nil {
-		return nil, err
+	if err := CheckName(q.Table.Name); err != nil {
+		return nil, fmt.Errorf("source table %q: %w", q.Table, err)
 	}
-	if !identRE.MatchString(q.Time) {
-		return nil, fmt.Errorf("time column %q is not a plain identifier", q.Time)
+	if err := CheckName(q.Time); err != nil {
+		return nil, fmt.Errorf("time column %q: %w", q.Time, err)
 	}
+	table := q.Table.Quoted()
 	if q.StatementTimeout <= 0 {
 		q.StatementTimeout = 5 * time.Minute
 	}

@@ -1,0 +1,231 @@
+// Package jobs runs one refit of one model: pull a window of rows from the
+// source table, fit, compare with the model's reference fit, and record it
+// all in the history tables in one transaction.
+package jobs
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"runtime/debug"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgxpool"
+
+	"github.com/curvewatch/curvewatch/fit"
+	"github.com/curvewatch/curvewatch/jobs/history"
+	"github.com/curvewatch/curvewatch/jobs/source"
+)
+
+// Model is what a refit needs to know about one configured model.
+type Model struct {
+	Name  string
+	Spec  *fit.Spec
+	Table source.Table
+	// Time is the window and watermark column; Where an optional trusted
+	// predicate.
+	Time, Where string
+	// Window is the rolling window fitted each run.
+	Window time.Duration
+	// Against is "baseline" (a pinned fit; the first successful fit is
+	// pinned automatically) or "previous" (the latest earlier fit whose
+	// window does not overlap).
+	Against   string
+	Tolerance fit.Tolerance
+}
+
+// Runner runs refits. The zero values of its optional fields are usable.
+type Runner struct {
+	// Source is the pool of the database holding the source tables.
+	Source *pgxpool.Pool
+	// Store records the history.
+	Store *history.Store
+	// Logger receives a record per refit (default: discard).
+	Logger *slog.Logger
+	// StatementTimeout bounds each source query (default 5 minutes).
+	StatementTimeout time.Duration
+	// Now gives the time for manual runs (default time.Now).
+	Now func() time.Time
+}
+
+// Status of a refit.
+const (
+	StatusSucceeded   = "succeeded"
+	StatusUnconverged = "unconverged"
+	StatusFailed      = "failed"
+	// StatusSlotDone: another run already recorded a successful fit for
+	// this slot; nothing was written.
+	StatusSlotDone = "slot done"
+)
+
+// Result describes one refit.
+type Result struct {
+	Model  string
+	Slot   time.Time
+	Status string
+	// Reason says why a refit failed.
+	Reason       string
+	FitID        int64
+	Document     *fit.Document
+	ReferenceID  int64
+	Report       *fit.ShiftReport
+	ComparisonID int64
+	// CompareNote says why no comparison was made, when none was.
+	CompareNote string
+	Duration    time.Duration
+}
+
+// Run refits model m for slot (zero for a manual run: the window then
+// ends now). Bad data, a bad spec or a panic in the fit fail this refit
+// alone: the failure is recorded with its reason and Run returns a Result
+// with StatusFailed and a nil error. Run returns an error only when the
+// history cannot be written (the caller retries later; nothing partial
+// was committed).
+func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result, err error) {
+	log := r.Logger
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	now := time.Now
+	if r.Now != nil {
+		now = r.Now
+	}
+	started := now()
+	end := slot
+	if end.IsZero() {
+		end = started
+	}
+	res = &Result{Model: m.Name, Slot: slot}
+	fail := func(reason string) (*Result, error) {
+		finished := now()
+		res.Status, res.Reason, res.Duration = StatusFailed, reason, finished.Sub(started)
+		id, err := r.Store.RecordFailure(ctx, m.Name, slot, reason, started, finished)
+		if err != nil {
+			return res, fmt.Errorf("model %q: record the failed refit (%s): %w", m.Name, reason, err)
+		}
+		res.FitID = id
+		log.Warn("refit failed", "model", m.Name, "slot", slot, "reason", reason)
+		return res, nil
+	}
+	defer func() {
+		if p := recover(); p != nil {
+			log.Error("refit panicked", "model", m.Name, "panic", p, "stack", string(debug.Stack()))
+			res, err = fail(fmt.Sprintf("internal error (panic): %v", p))
+		}
+	}()
+
+	rows, err := source.Open(ctx, r.Source, source.Query{Table: m.Table, Time: m.Time, Where: m.Where,
+		From: end.Add(-m.Window), To: end, StatementTimeout: r.StatementTimeout})
+	if err != nil {
+		if ctx.Err() != nil {
+			return res, ctx.Err()
+		}
+		return fail(err.Error())
+	}
+	doc, fitErr := fit.Fit(ctx, m.Spec, rows, fit.Options{TimeColumn: m.Time})
+	newest := rows.Newest
+	rows.Close()
+	if fitErr != nil && !errors.Is(fitErr, fit.ErrNotConverged) {
+		if ctx.Err() != nil {
+			return res, ctx.Err()
+		}
+		return fail(fitErr.Error())
+	}
+	res.Document = doc
+	var window *history.Window
+	if w := doc.Data.Window; w != nil {
+		window = &history.Window{First: epoch(w.First), Last: epoch(w.Last)}
+	}
+
+	// The reference, and the comparison with it.
+	var refID int64
+	pinFirst := false
+	if doc.Convergence.Converged {
+		switch m.Against {
+		case "previous":
+			if window != nil {
+				prev, err := r.Store.PreviousDisjoint(ctx, m.Name, math.MaxInt64, *window)
+				switch {
+				case err == nil:
+					refID = prev.ID
+				case errors.Is(err, history.ErrNoFit):
+					res.CompareNote = "no earlier fit with a disjoint window yet"
+				default:
+					return res, fmt.Errorf("model %q: find the previous fit: %w", m.Name, err)
+				}
+			}
+		default:
+			id, ok, err := r.Store.Baseline(ctx, m.Name)
+			if err != nil {
+				return res, fmt.Errorf("model %q: read the baseline: %w", m.Name, err)
+			}
+			if ok {
+				refID = id
+			} else {
+				pinFirst = true
+				res.CompareNote = "no baseline yet: this fit becomes the baseline"
+			}
+		}
+	} else {
+		res.CompareNote = "the fit did not converge, so it is not compared"
+	}
+	if refID != 0 {
+		ref, err := r.Store.Fit(ctx, refID)
+		if err != nil {
+			return res, fmt.Errorf("model %q: read reference fit %d: %w", m.Name, refID, err)
+		}
+		rep, err := fit.Compare(ref.Document, doc, m.Tolerance)
+		if err != nil {
+			res.CompareNote = "not compared: " + err.Error()
+			refID = 0
+		} else {
+			res.Report, res.ReferenceID = rep, refID
+		}
+	}
+
+	finished := now()
+	res.Duration = finished.Sub(started)
+	err = r.Store.InTx(ctx, func(tx pgx.Tx) error {
+		id, err := r.Store.RecordFitTx(ctx, tx, history.FitRecord{Model: m.Name, Slot: slot, Started: started, Finished: finished,
+			Window: window, Document: doc, Watermark: newest})
+		if err != nil {
+			return err
+		}
+		res.FitID = id
+		if res.Report != nil {
+			cid, err := r.Store.RecordComparisonTx(ctx, tx, m.Name, refID, id, res.Report)
+			if err != nil {
+				return err
+			}
+			res.ComparisonID = cid
+		}
+		if pinFirst {
+			return r.Store.PinBaselineTx(ctx, tx, m.Name, id, "auto")
+		}
+		return nil
+	})
+	var done *history.SlotDoneError
+	switch {
+	case errors.As(err, &done):
+		res.Status, res.FitID, res.Report, res.ComparisonID = StatusSlotDone, done.FitID, nil, 0
+		return res, nil
+	case err != nil:
+		return res, fmt.Errorf("model %q: record the fit: %w", m.Name, err)
+	}
+	res.Status = StatusSucceeded
+	if !doc.Convergence.Converged {
+		res.Status = StatusUnconverged
+	}
+	log.Info("refit", "model", m.Name, "slot", slot, "status", res.Status, "rows", doc.N,
+		"deviance_explained", doc.DevianceExplained, "breach", res.Report != nil && res.Report.Breach, "seconds", res.Duration.Seconds())
+	return res, nil
+}
+
+// epoch converts seconds since 1970 to a time.
+func epoch(s float64) time.Time {
+	sec := int64(s)
+	return time.Unix(sec, int64((s-float64(sec))*1e9)).UTC()
+}
