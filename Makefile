@@ -23,6 +23,7 @@ bench: ## speed and memory against numpy on this machine (needs python3-numpy)
 fuzz: ## run each parser's fuzzer for 30 s
 	go test ./fit/ -run '^$$' -fuzz FuzzParseSpec -fuzztime 30s
 	go test ./fit/csvsource/ -run '^$$' -fuzz FuzzScan -fuzztime 30s
+	go test ./daemon/config/ -run '^$$' -fuzz FuzzParseConfig -fuzztime 30s
 
 references: ## regenerate the outside reference values (needs python3-scipy, python3-statsmodels)
 	/usr/bin/python3 testdata/reference/smoothing_spline/smoothing_spline.py

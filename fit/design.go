@@ -61,10 +61,10 @@ type termDesign struct {
 	// specIndex is the term's position in the spec (by-level curves share
 	// their spec term's).
 	specIndex int
-	aliased           []string // names of raw columns dropped as aliased
-	q                 int      // constrained coefficients
-	cstart            int      // first constrained coefficient
-	penStart          int      // first penalty index in the model
+	aliased   []string // names of raw columns dropped as aliased
+	q         int      // constrained coefficients
+	cstart    int      // first constrained coefficient
+	penStart  int      // first penalty index in the model
 }
 
 // design is the whole model matrix: an intercept column then each term.

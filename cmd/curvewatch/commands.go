@@ -29,6 +29,8 @@ var commands = []command{
 	{name: "fit", summary: "fit a model spec to CSV rows; writes the fit document, prints a summary", run: runFit},
 	{name: "predict", summary: "evaluate a fit document on new CSV rows; adds link, link_se, response", run: runPredict},
 	{name: "compare", summary: "compare a candidate fit with a reference fit of the same model; exit 3 on a breach", run: runCompare},
+	{name: "validate", summary: "check the daemon config: schedules, specs, source tables and columns", run: runValidate},
+	{name: "migrate", summary: "create or update the daemon's tables in its schema (--down removes them)", run: runMigrate},
 }
 
 func lookup(name string) (command, bool) {

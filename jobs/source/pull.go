@@ -111,7 +111,9 @@ func (r *Rows) predicate() string {
 	t := pgx.Identifier{r.q.Time}.Sanitize()
 	p := t + " >= $1 AND " + t + " < $2"
 	if strings.TrimSpace(r.q.Where) != "" {
-		p += " AND (" + r.q.Where + ")"
+		// On lines of its own, so a trailing -- comment cannot swallow the
+		// closing parenthesis.
+		p += " AND (\n" + r.q.Where + "\n)"
 	}
 	return p
 }

@@ -105,4 +105,3 @@ func TestRowsStreamAWindowInOneSnapshot(t *testing.T) {
 		t.Errorf("data record %+v", doc.Data)
 	}
 }
-

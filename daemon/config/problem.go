@@ -1,0 +1,64 @@
+package config
+
+import (
+	"fmt"
+	"strings"
+)
+
+// Problem is one thing wrong with a config.
+type Problem struct {
+	// Line is the line of the config file the problem is on, counting from
+	// 1, or 0 when unknown.
+	Line int `json:"line,omitempty"`
+	// Path names the key at fault: "database", "models[1].schedule",
+	// "models[0].spec.terms[2]" (list entries count from 0).
+	Path string `json:"path,omitempty"`
+	// Message says what is wrong and what to do.
+	Message string `json:"message"`
+}
+
+// String formats the problem as "line N: PATH: MESSAGE", leaving out what
+// is unknown or empty.
+func (p Problem) String() string {
+	var b strings.Builder
+	if p.Line > 0 {
+		fmt.Fprintf(&b, "line %d: ", p.Line)
+	}
+	if p.Path != "" {
+		b.WriteString(p.Path + ": ")
+	}
+	b.WriteString(p.Message)
+	return b.String()
+}
+
+// Error reports every problem found in a config, in line order, so that a
+// user can fix them all in one go.
+type Error struct {
+	// File is the config file's name as given to Load, or "" for Parse.
+	File     string
+	Problems []Problem
+}
+
+// Error lists the problems one per line, after a heading naming the file
+// when it is known.
+func (e *Error) Error() string {
+	lines := make([]string, 0, len(e.Problems)+1)
+	if e.File != "" {
+		lines = append(lines, fmt.Sprintf("config %s has %s:", e.File, count(len(e.Problems), "problem", "problems")))
+	}
+	for _, p := range e.Problems {
+		lines = append(lines, p.String())
+	}
+	if len(lines) == 0 {
+		return "invalid config"
+	}
+	return strings.Join(lines, "\n")
+}
+
+// count writes n with the singular or plural noun.
+func count(n int, one, many string) string {
+	if n == 1 {
+		return "1 " + one
+	}
+	return fmt.Sprintf("%d %s", n, many)
+}
