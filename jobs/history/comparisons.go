@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strings"
 
 	"github.com/curvewatch/curvewatch/fit"
 	"github.com/jackc/pgerrcode"
@@ -109,4 +110,49 @@ func (s *Store) ComparisonTerms(ctx context.Context, comparisonID int64) ([]Term
 		return nil, fmt.Errorf("history: terms of comparison %d: %w", comparisonID, err)
 	}
 	return out, nil
+}
+
+// Verdict summarises the comparison made for one fit (as the candidate).
+type Verdict struct {
+	ComparisonID int64
+	ReferenceID  int64
+	Breach       bool
+	// Shifted lists the terms whose verdict breached.
+	Shifted []string
+}
+
+// Text says the verdict in a few words.
+func (v Verdict) Text() string {
+	switch {
+	case len(v.Shifted) > 0:
+		return fmt.Sprintf("BREACH vs fit %d: %s shifted", v.ReferenceID, strings.Join(v.Shifted, ", "))
+	case v.Breach:
+		return fmt.Sprintf("BREACH vs fit %d", v.ReferenceID)
+	}
+	return fmt.Sprintf("stable vs fit %d", v.ReferenceID)
+}
+
+// Verdicts returns, for those of the given fits that were compared with a
+// reference, the latest comparison's verdict, keyed by fit id.
+func (s *Store) Verdicts(ctx context.Context, model string, fitIDs []int64) (map[int64]Verdict, error) {
+	rows, err := s.pool.Query(ctx, `
+		SELECT DISTINCT ON (c.candidate_fit_id) c.candidate_fit_id, c.id, c.reference_fit_id, c.breach,
+		       COALESCE(array_agg(t.term ORDER BY t.term) FILTER (WHERE t.verdict = 'shifted'), '{}')
+		FROM comparisons c LEFT JOIN comparison_terms t ON t.comparison_id = c.id
+		WHERE c.model = $1 AND c.candidate_fit_id = ANY($2)
+		GROUP BY c.id ORDER BY c.candidate_fit_id, c.id DESC`, model, fitIDs)
+	if err != nil {
+		return nil, fmt.Errorf("history: verdicts of model %q: %w", model, err)
+	}
+	defer rows.Close()
+	out := map[int64]Verdict{}
+	for rows.Next() {
+		var fitID int64
+		var v Verdict
+		if err := rows.Scan(&fitID, &v.ComparisonID, &v.ReferenceID, &v.Breach, &v.Shifted); err != nil {
+			return nil, fmt.Errorf("history: verdicts of model %q: %w", model, err)
+		}
+		out[fitID] = v
+	}
+	return out, rows.Err()
 }
