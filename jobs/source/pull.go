@@ -47,9 +47,8 @@ type Rows struct {
 	columns []string
 	tx      pgx.Tx
 	conn    *pgxpool.Conn
-	// Count and Newest describe the window after Open: the number of rows
-	// and the newest time value (zero when empty).
-	Count  int64
+	// Newest is the newest time value in the window after Open (zero when
+	// the window is empty): the refit's watermark.
 	Newest time.Time
 }
 
@@ -95,9 +94,9 @@ func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
 	}
 	rs.Close()
 	var newest pgtype.Timestamptz
-	err = tx.QueryRow(ctx, "SELECT count(*), max("+pgx.Identifier{q.Time}.Sanitize()+")::timestamptz FROM "+table+" WHERE "+r.predicate(), q.From, q.To).Scan(&r.Count, &newest)
+	err = tx.QueryRow(ctx, "SELECT max("+pgx.Identifier{q.Time}.Sanitize()+")::timestamptz FROM "+table+" WHERE "+r.predicate(), q.From, q.To).Scan(&newest)
 	if err != nil {
-		return fail(fmt.Errorf("source %s: count the window's rows: %w", q.Table, err))
+		return fail(fmt.Errorf("source %s: find the window's newest row: %w", q.Table, err))
 	}
 	if newest.Valid {
 		r.Newest = newest.Time
