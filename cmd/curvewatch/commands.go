@@ -30,6 +30,7 @@ var commands = []command{
 	{name: "predict", summary: "evaluate a fit document on new CSV rows; adds link, link_se, response", run: runPredict},
 	{name: "compare", summary: "compare a candidate fit with a reference fit of the same model; exit 3 on a breach", run: runCompare},
 	{name: "validate", summary: "check the daemon config: schedules, specs, source tables and columns", run: runValidate},
+	{name: "serve", summary: "run the daemon: refit every model on its schedule, serve /healthz and /readyz", run: runServe},
 	{name: "run", summary: "refit one configured model now from its source table, as the daemon would", run: runRun},
 	{name: "history", summary: "list a model's recorded fits: when, rows, deviance explained, verdicts", run: runHistory},
 	{name: "migrate", summary: "create or update the daemon's tables in its schema (--down removes them)", run: runMigrate},
