@@ -178,10 +178,7 @@ func New(cfg *config.Config, opts Options) (*App, error) {
 		if _, dup := a.models[m.Name]; dup {
 			return nil, fmt.Errorf("daemon: model name %q is used twice", m.Name)
 		}
-		a.models[m.Name] = jobs.Model{
-			Name: m.Name, Spec: m.Spec, Table: m.Source.Table, Time: m.Source.Time, Where: m.Source.Where,
-			Window: m.Source.Window, Against: m.Watch.Against, Tolerance: m.Watch.Tolerance(),
-		}
+		a.models[m.Name] = JobModel(&m)
 		a.sched[m.Name] = newSchedule(m.Cron)
 		a.names = append(a.names, m.Name)
 	}
@@ -363,4 +360,10 @@ func (a *App) resources() (*pgxpool.Pool, *history.Store) {
 
 func (a *App) setNotReady(why string) {
 	a.lastErr.Store(&why)
+}
+
+// JobModel turns a configured model into what a refit needs.
+func JobModel(m *config.Model) jobs.Model {
+	return jobs.Model{Name: m.Name, Spec: m.Spec, Table: m.Source.Table, Time: m.Source.Time, Where: m.Source.Where,
+		Window: m.Source.Window, Against: m.Watch.Against, Tolerance: m.Watch.Tolerance()}
 }

@@ -9,6 +9,7 @@ import (
 
 	"github.com/jackc/pgx/v5/pgxpool"
 
+	"github.com/curvewatch/curvewatch/daemon"
 	"github.com/curvewatch/curvewatch/daemon/config"
 	"github.com/curvewatch/curvewatch/jobs"
 	"github.com/curvewatch/curvewatch/jobs/history"
@@ -69,7 +70,7 @@ func runRun(ctx context.Context, e *env, args []string) error {
 	}
 	defer pool.Close()
 	runner := &jobs.Runner{Source: pool, Store: store, Logger: fl.logger(e)}
-	res, err := runner.Run(ctx, JobModel(m), time.Time{})
+	res, err := runner.Run(ctx, daemon.JobModel(m), time.Time{})
 	if err != nil {
 		return errors.New(scrub(err.Error(), dsn))
 	}
@@ -112,8 +113,3 @@ func loadModel(path, name string) (*config.Config, *config.Model, error) {
 	return cfg, m, nil
 }
 
-// JobModel turns a configured model into what a refit needs.
-func JobModel(m *config.Model) jobs.Model {
-	return jobs.Model{Name: m.Name, Spec: m.Spec, Table: m.Source.Table, Time: m.Source.Time, Where: m.Source.Where,
-		Window: m.Source.Window, Against: m.Watch.Against, Tolerance: m.Watch.Tolerance()}
-}
