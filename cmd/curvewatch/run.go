@@ -112,4 +112,3 @@ func loadModel(path, name string) (*config.Config, *config.Model, error) {
 	}
 	return cfg, m, nil
 }
-
