@@ -104,3 +104,31 @@ func BenchmarkTerms(b *testing.B) {
 		}
 	}
 }
+
+// Starting a large poisson fit from a fit to a sample of its rows changes
+// only the number of passes, not the fit (to the convergence tolerance).
+func TestSampleStartChangesNothingButPasses(t *testing.T) {
+	if testing.Short() {
+		t.Skip("large fit")
+	}
+	data := benchTable(250_000, "poisson")
+	spec := benchSpec("poisson")
+	with, err := fit.Fit(context.Background(), spec, data, fit.Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	without, err := fit.Fit(context.Background(), spec, data, fit.Options{NoSampleStart: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := math.Abs(with.Deviance-without.Deviance) / without.Deviance; d > 1e-8 {
+		t.Errorf("deviance %.12g vs %.12g", with.Deviance, without.Deviance)
+	}
+	for i := range with.Coefficients {
+		se := math.Sqrt(without.Covariance[i][i])
+		if math.Abs(with.Coefficients[i]-without.Coefficients[i]) > 1e-4*se {
+			t.Errorf("coefficient %d: %.10g vs %.10g (se %.3g)", i, with.Coefficients[i], without.Coefficients[i], se)
+		}
+	}
+	t.Logf("passes over all rows: %d with the sample start, %d without", with.Convergence.Passes, without.Convergence.Passes)
+}

@@ -40,6 +40,10 @@ type Options struct {
 	Progress func(Progress)
 	// Logger receives debug records; nil discards them.
 	Logger *slog.Logger
+	// NoSampleStart turns off the starting values a large non-gaussian fit
+	// takes from a fit to a sample of its rows (for checking that they
+	// change nothing but the number of passes).
+	NoSampleStart bool
 	// TimeColumn names a numeric column whose span over the rows is
 	// recorded as the fit's data window (default: the spec's serial order
 	// column, if any). It is read like any other column.
@@ -104,6 +108,10 @@ type fitter struct {
 	// serialRec what its fit found.
 	serial    *serialModel
 	serialRec *SerialRecord
+	// startRaw and startRho, when set, are starting values from a fit to a
+	// sample of the rows (raw coefficients, and log λ for the full data).
+	startRaw []float64
+	startRho []float64
 }
 
 func newFitter(spec *Spec, src Source, opt Options) (*fitter, error) {
@@ -232,8 +240,12 @@ func (f *fitter) run(ctx context.Context) (*Document, error) {
 // pass runs one pass at constrained coefficients beta (nil: starting means).
 func (f *fitter) pass(ctx context.Context, st *pirlsState, beta []float64, mode passMode, nullMu func(float64) float64, phi float64) (*passResult, error) {
 	ps := &passState{m: f.m, d: st.d, fam: f.m.fam, link: f.m.link, mode: mode, workers: f.opt.Workers, nullMu: nullMu, phi: phi, zShift: f.zShift}
-	if beta != nil {
+	switch {
+	case beta != nil:
 		ps.betaRaw = matMul(st.z, beta, st.d.p, st.d.pc, 1)
+	case len(f.startRaw) == st.d.p:
+		// The model's first pass starts from the sample fit.
+		ps.betaRaw = f.startRaw
 	}
 	return ps.run(ctx, f.src)
 }
@@ -253,6 +265,10 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 	var firstNull func(float64) float64
 	if m.spec.Offset == "" {
 		firstNull = nullMu
+	}
+	linear := m.fam.Name() == "gaussian" && m.link.Name() == "identity"
+	if !linear && f.serial == nil {
+		f.startFromSample(ctx, sum)
 	}
 	res, err := f.pass(ctx, st, nil, f.mode, firstNull, 1)
 	if err != nil {
@@ -279,7 +295,6 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 	if err := f.dropAliased(ctx, st, res); err != nil {
 		return nil, err
 	}
-	linear := m.fam.Name() == "gaussian" && m.link.Name() == "identity"
 	if f.serial != nil {
 		if !linear {
 			return nil, errors.New("serial (AR(1)) errors need the gaussian family with the identity link")
@@ -304,6 +319,19 @@ func (f *fitter) pirls(ctx context.Context, d *design, sum *summary) (*pirlsStat
 	prevBeta := make([]float64, st.d.pc)
 	prevBeta[0] = m.link.Link(sum.yMean)
 	prevPen := math.Inf(1)
+	if f.startRaw != nil {
+		// The first pass was at the sample fit's β: it is the point to
+		// improve on, and its λ (rescaled to n) the search's start.
+		prevBeta = matTMul(st.z, f.startRaw, st.d.p, st.d.pc, 1)
+		if len(f.startRho) == len(st.rho) {
+			for a := range st.rho {
+				st.rho[a] = math.Min(st.sel.hi[a], math.Max(st.sel.lo[a], f.startRho[a]))
+			}
+		}
+		if !res.invalid {
+			prevPen = res.dev + penaltyAt(st.pr, st.sel.lambdaAt(st.rho), prevBeta)
+		}
+	}
 	prevLambda := st.sel.lambdaAt(st.rho)
 	for st.iter = 1; st.iter <= f.opt.MaxIterations; st.iter++ {
 		if err := ctx.Err(); err != nil {
@@ -423,6 +451,36 @@ func coefficientsSettled(prev, next, hinv []float64, phi float64) bool {
 		}
 	}
 	return true
+}
+
+// startFromSample fits the model to the summary pass's sample of rows
+// (same knots and levels) and keeps its coefficients and smoothing
+// strengths as starting values, so that a large non-gaussian fit needs only
+// a few passes over all the rows (the strategy of fitting a subsample first:
+// Wood, Goude & Shaw 2015, §3). It does nothing for small data, and a failed
+// sample fit only means the usual start.
+func (f *fitter) startFromSample(ctx context.Context, sum *summary) {
+	if sum.sample == nil || sum.rowsUsed < 4*startSample || f.opt.NoSampleStart {
+		return
+	}
+	d, err := buildDesign(f.m, sum)
+	if err != nil {
+		return
+	}
+	sub := &fitter{m: f.m, src: sum.sample.table, opt: f.opt, log: f.log, mode: f.mode}
+	sub.opt.Progress = nil
+	subSum := *sum
+	subSum.sample = nil
+	subSum.rowsUsed = sum.sample.table.Rows()
+	st, err := sub.pirls(ctx, d, &subSum)
+	if err != nil || !st.conv {
+		return
+	}
+	f.startRaw = matMul(st.z, st.beta, d.p, d.pc, 1)
+	shift := math.Log(float64(sum.rowsUsed) / float64(subSum.rowsUsed))
+	for _, r := range st.rho {
+		f.startRho = append(f.startRho, r+shift)
+	}
 }
 
 // penaltyAt is βᵀS_λβ.

@@ -97,6 +97,9 @@ type summary struct {
 	pairs map[int]*pairSample
 	// rows hashes the used rows (fingerprint and sketch).
 	rows *rowHasher
+	// sample is a fixed-size reservoir sample of whole used rows, from
+	// which large non-gaussian fits take their starting values.
+	sample *rowSample
 	// window is the time column's span, when there is a time column.
 	window *TimeWindow
 }
@@ -205,6 +208,8 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 		}
 	}
 	pairRNG := rand.New(rand.NewPCG(3, 4))
+	s.sample = newRowSample(m.need)
+	rowRNG := rand.New(rand.NewPCG(5, 6))
 	s.rows = newRowHasher()
 	timeCol := m.timeColumn
 	if timeCol != "" {
@@ -284,6 +289,7 @@ func summarise(ctx context.Context, m *modelSetup, src Source) (*summary, error)
 		}
 		for _, r := range keep {
 			s.rows.add(s.rows.hash(b, r, m.need))
+			s.sample.add(b, r, rowRNG)
 		}
 		if s.window != nil {
 			col := b.Numeric[timeCol]
@@ -370,4 +376,49 @@ func SortLevels(names []string) []string {
 // sortLevels returns the keys of a level count map in SortLevels order.
 func sortLevels(levels map[string]int) []string {
 	return SortLevels(slices.Collect(maps.Keys(levels)))
+}
+
+// startSample is the number of rows a large non-gaussian fit first fits to
+// find its starting values.
+const startSample = 50_000
+
+// rowSample is a reservoir sample of whole rows (Vitter 1985, algorithm R).
+type rowSample struct {
+	need  Need
+	seen  int
+	table *Table
+}
+
+func newRowSample(need Need) *rowSample {
+	t := &Table{Numeric: map[string][]float64{}, Text: map[string][]string{}}
+	for _, c := range need.Numeric {
+		t.Numeric[c] = nil
+	}
+	for _, c := range need.Text {
+		t.Text[c] = nil
+	}
+	return &rowSample{need: need, table: t}
+}
+
+func (s *rowSample) add(b *Block, r int, rng *rand.Rand) {
+	s.seen++
+	if s.seen <= startSample {
+		for _, c := range s.need.Numeric {
+			s.table.Numeric[c] = append(s.table.Numeric[c], b.Numeric[c][r])
+		}
+		for _, c := range s.need.Text {
+			s.table.Text[c] = append(s.table.Text[c], b.Text[c][r])
+		}
+		return
+	}
+	j := rng.IntN(s.seen)
+	if j >= startSample {
+		return
+	}
+	for _, c := range s.need.Numeric {
+		s.table.Numeric[c][j] = b.Numeric[c][r]
+	}
+	for _, c := range s.need.Text {
+		s.table.Text[c][j] = b.Text[c][r]
+	}
 }
