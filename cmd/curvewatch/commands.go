@@ -33,6 +33,7 @@ var commands = []command{
 	{name: "serve", summary: "run the daemon: refit every model on its schedule, serve /healthz and /readyz", run: runServe},
 	{name: "run", summary: "refit one configured model now from its source table, as the daemon would", run: runRun},
 	{name: "history", summary: "list a model's recorded fits: when, rows, deviance explained, verdicts", run: runHistory},
+	{name: "baseline", summary: "pin a succeeded fit as a model's baseline, or show the baseline", run: runBaseline},
 	{name: "migrate", summary: "create or update the daemon's tables in its schema (--down removes them)", run: runMigrate},
 }
 
