@@ -83,6 +83,11 @@ type Options struct {
 	// BusyRetry is how long a refit waits before trying again when
 	// another refit of the same model is running (default 5 s).
 	BusyRetry time.Duration
+	// CatchUpEvery is how often, once running, the daemon looks for a
+	// model whose latest slot has no refit (a slot whose periodic insert
+	// failed while the database was unreachable) and enqueues it once
+	// (default 1 minute).
+	CatchUpEvery time.Duration
 	// RetryMin and RetryMax bound the backoff between attempts to bring
 	// the database side up (defaults 1 s and 30 s; it doubles each time).
 	RetryMin, RetryMax time.Duration

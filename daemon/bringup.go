@@ -102,8 +102,32 @@ func (a *App) up(ctx, base context.Context) error {
 		a.mu.Lock()
 		a.riverStarted = true
 		a.mu.Unlock()
+		go a.catchUpLoop(base, pool, schema)
 	}
 	return nil
+}
+
+// catchUpLoop repeats catchUp while the daemon runs: River's periodic
+// enqueuer does not retry an insert that failed while the database was
+// down, so without it a slot due during an outage would be lost. Errors
+// (the database still down) are logged and tried again next time.
+func (a *App) catchUpLoop(ctx context.Context, pool *pgxpool.Pool, schema string) {
+	every := a.opts.CatchUpEvery
+	if every <= 0 {
+		every = time.Minute
+	}
+	tick := time.NewTicker(every)
+	defer tick.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-tick.C:
+			if err := a.catchUp(ctx, pool, schema); err != nil && ctx.Err() == nil {
+				a.log.Warn("looking for missed slots failed; trying again later", "error", a.scrub(err.Error()))
+			}
+		}
+	}
 }
 
 // connect opens the pool and checks that the database answers.

@@ -80,7 +80,7 @@ func suggestColumn(col string, columns []string) string {
 	if len(columns) == 0 {
 		return " (the data have no columns)"
 	}
-	if best, ok := closestName(col, columns); ok {
+	if best, ok := ClosestName(col, columns); ok {
 		return fmt.Sprintf(": did you mean %q?", best)
 	}
 	const most = 8
@@ -96,7 +96,7 @@ func suggestColumn(col string, columns []string) string {
 
 // closestName returns the candidate closest to name, ignoring case, if it is
 // within one edit per three runes of name (and at least one).
-func closestName(name string, candidates []string) (string, bool) {
+func ClosestName(name string, candidates []string) (string, bool) {
 	best, bestDist := "", math.MaxInt
 	for _, c := range candidates {
 		if d := editDistance(strings.ToLower(name), strings.ToLower(c)); d < bestDist {

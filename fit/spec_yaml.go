@@ -127,7 +127,7 @@ func (p *specParser) entries(m *yaml.Node, path string) []yamlEntry {
 // key when one is close, and listing them all after label.
 func (p *specParser) unknownKey(e yamlEntry, path, label string, known ...string) {
 	hint := ""
-	if c, ok := closestName(e.key, known); ok {
+	if c, ok := ClosestName(e.key, known); ok {
 		hint = fmt.Sprintf(", did you mean %q?", c)
 	}
 	list := ""

@@ -500,17 +500,11 @@ func suggest(col string, names []string) string {
 	if len(names) == 0 {
 		return " (it has no columns)"
 	}
-	best, dist := "", 1<<30
-	for _, n := range names {
-		if d := levenshtein(strings.ToLower(col), strings.ToLower(n)); d < dist {
-			best, dist = n, d
-		}
-	}
-	if dist <= max(1, len([]rune(col))/3) {
+	if best, ok := fit.ClosestName(col, names); ok {
 		return fmt.Sprintf(": did you mean %q?", best)
 	}
 	// A name that starts the other (observed, observed_at).
-	best, dist = "", 1<<30
+	best, dist := "", 1<<30
 	for _, n := range names {
 		a, b := strings.ToLower(col), strings.ToLower(n)
 		if d := abs(len(a) - len(b)); (strings.HasPrefix(a, b) || strings.HasPrefix(b, a)) && d < dist {
@@ -536,24 +530,3 @@ func abs(n int) int {
 	return n
 }
 
-// levenshtein is the edit distance between a and b, in runes.
-func levenshtein(a, b string) int {
-	ra, rb := []rune(a), []rune(b)
-	prev := make([]int, len(rb)+1)
-	cur := make([]int, len(rb)+1)
-	for j := range prev {
-		prev[j] = j
-	}
-	for i := 1; i <= len(ra); i++ {
-		cur[0] = i
-		for j := 1; j <= len(rb); j++ {
-			cost := 1
-			if ra[i-1] == rb[j-1] {
-				cost = 0
-			}
-			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
-		}
-		prev, cur = cur, prev
-	}
-	return prev[len(rb)]
-}

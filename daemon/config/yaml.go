@@ -11,6 +11,8 @@ import (
 	"unicode/utf8"
 
 	"go.yaml.in/yaml/v3"
+
+	"github.com/curvewatch/curvewatch/fit"
 )
 
 // parser collects problems while it reads a config.
@@ -290,40 +292,8 @@ func (p *parser) list(e entry, path, want string) ([]*yaml.Node, bool) {
 	return items, true
 }
 
-// closest returns the candidate closest to name, ignoring case, if it is
-// within one edit per three runes of name (and at least one).
+// closest returns the candidate closest to name, if close enough to
+// suggest (see fit.ClosestName).
 func closest(name string, candidates []string) (string, bool) {
-	best, bestDist := "", math.MaxInt
-	for _, c := range candidates {
-		if d := editDistance(strings.ToLower(name), strings.ToLower(c)); d < bestDist {
-			best, bestDist = c, d
-		}
-	}
-	return best, bestDist <= max(1, utf8.RuneCountInString(name)/3)
-}
-
-// editDistance returns the Levenshtein distance between a and b in runes;
-// names longer than 64 runes are not compared.
-func editDistance(a, b string) int {
-	ra, rb := []rune(a), []rune(b)
-	if len(ra) > 64 || len(rb) > 64 {
-		return len(ra) + len(rb) + 1
-	}
-	prev := make([]int, len(rb)+1)
-	cur := make([]int, len(rb)+1)
-	for j := range prev {
-		prev[j] = j
-	}
-	for i := 1; i <= len(ra); i++ {
-		cur[0] = i
-		for j := 1; j <= len(rb); j++ {
-			cost := 1
-			if ra[i-1] == rb[j-1] {
-				cost = 0
-			}
-			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
-		}
-		prev, cur = cur, prev
-	}
-	return prev[len(rb)]
+	return fit.ClosestName(name, candidates)
 }
