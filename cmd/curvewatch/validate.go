@@ -529,4 +529,3 @@ func abs(n int) int {
 	}
 	return n
 }
-
