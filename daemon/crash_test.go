@@ -228,7 +228,7 @@ func TestCrashRecovery(t *testing.T) {
 	fmt.Fprintf(logFile(t, logPath), "=== final run\n")
 	final := startCrashChild(t, db.url, db.schema, logPath)
 	pending := `SELECT count(*) FROM river_job WHERE kind = 'curvewatch_refit' AND created_at < $1 AND state NOT IN ('completed', 'cancelled', 'discarded')`
-	waitFor(t, 40*time.Second, "every refit job enqueued before the final run to finish", func() (bool, error) {
+	waitFor(t, 120*time.Second, "every refit job enqueued before the final run to finish", func() (bool, error) {
 		if final.exited() {
 			return false, fmt.Errorf("the final child exited by itself: %v", final.cmd.ProcessState)
 		}
