@@ -117,6 +117,14 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		}
 	}()
 
+	if reason, err := checkColumns(ctx, r.Source, m); err != nil {
+		if ctx.Err() != nil {
+			return res, ctx.Err()
+		}
+		return fail(err.Error())
+	} else if reason != "" {
+		return fail(reason)
+	}
 	rows, err := source.Open(ctx, r.Source, source.Query{Table: m.Table, Time: m.Time, Where: m.Where,
 		From: end.Add(-m.Window), To: end, StatementTimeout: r.StatementTimeout})
 	if err != nil {
@@ -228,4 +236,44 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 func epoch(s float64) time.Time {
 	sec := int64(s)
 	return time.Unix(sec, int64((s-float64(sec))*1e9)).UTC()
+}
+
+// checkColumns compares the spec's columns with the source table's
+// catalogue before any row is read, so that a column of the wrong type
+// fails with a reason naming it (not a cast error from the database). It
+// returns that reason, or an error when the catalogue cannot be read.
+func checkColumns(ctx context.Context, pool *pgxpool.Pool, m Model) (string, error) {
+	cols, err := source.Describe(ctx, pool, m.Table.String())
+	if err != nil {
+		return "", err
+	}
+	byName := make(map[string]source.Column, len(cols))
+	for _, c := range cols {
+		byName[c.Name] = c
+	}
+	numeric, text := m.Spec.Columns()
+	for _, name := range numeric {
+		c, ok := byName[name]
+		if !ok {
+			return fmt.Sprintf("column %q is not in table %s", name, m.Table), nil
+		}
+		if num, _, tm := c.Usable(); !num && !(tm && name == m.Time) {
+			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a number (response, weights, offset, curve, surface or linear term)", name, m.Table, c.Type), nil
+		}
+	}
+	for _, name := range text {
+		c, ok := byName[name]
+		if !ok {
+			return fmt.Sprintf("column %q is not in table %s", name, m.Table), nil
+		}
+		if _, txt, _ := c.Usable(); !txt {
+			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a factor (text or integer levels)", name, m.Table, c.Type), nil
+		}
+	}
+	if c, ok := byName[m.Time]; !ok {
+		return fmt.Sprintf("time column %q is not in table %s", m.Time, m.Table), nil
+	} else if _, _, tm := c.Usable(); !tm {
+		return fmt.Sprintf("time column %q of table %s is %s, not a timestamp or date", m.Time, m.Table, c.Type), nil
+	}
+	return "", nil
 }

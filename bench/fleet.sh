@@ -1,0 +1,19 @@
+#!/usr/bin/env bash
+# The fleet benchmark of issue 5: CURVEWATCH_FLEET_MODELS small models
+# (default 1000; 10,000 rows and 3 curves each) due in the same slot, run by
+# one daemon with a worker per core. Prints the slot's wall time against the
+# sum of the pure fit times divided by the cores (target ≤ 1.2).
+# Needs a PostgreSQL URL in CURVEWATCH_TEST_DATABASE_URL (default: the
+# machine's local server, database test); the benchmark makes and drops a
+# schema of its own there.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+export CURVEWATCH_TEST_DATABASE_URL=${CURVEWATCH_TEST_DATABASE_URL:-postgres://postgres@127.0.0.1:5432/test?sslmode=disable}
+export CURVEWATCH_FLEET=1
+export CURVEWATCH_FLEET_MODELS=${CURVEWATCH_FLEET_MODELS:-1000}
+out=$(go test ./daemon/ -run '^$' -bench BenchmarkFleet -benchtime 1x -timeout 2h -v 2>&1) || { printf '%s\n' "$out"; exit 1; }
+printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet-' || true
+printf '%s\n' "$out" | awk '/^BenchmarkFleet-/ {
+  for (i = 1; i <= NF; i++) m[$i] = $(i-1)
+  printf "fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core\n",
+    ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"] }'

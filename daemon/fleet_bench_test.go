@@ -1,0 +1,255 @@
+package daemon
+
+import (
+	"context"
+	"fmt"
+	"log/slog"
+	"os"
+	"runtime"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/jackc/pgx/v5/pgxpool"
+
+	"github.com/curvewatch/curvewatch/daemon/config"
+	"github.com/curvewatch/curvewatch/fit"
+	"github.com/curvewatch/curvewatch/internal/pgtest"
+	"github.com/curvewatch/curvewatch/jobs/source"
+)
+
+// Fleet benchmark settings (bench/fleet.sh sets them).
+const (
+	envFleet       = "CURVEWATCH_FLEET"        // "1" runs BenchmarkFleet
+	envFleetModels = "CURVEWATCH_FLEET_MODELS" // models in the fleet (default 1000)
+	fleetRows      = 10_000                    // rows per model
+)
+
+const fleetSpec = "name: fleet\nresponse: y\nfamily: gaussian\nterms:\n  - curve: x1\n  - curve: x2\n  - curve: x3\n"
+
+// BenchmarkFleet measures issue 5's fleet target: F small models (F from
+// CURVEWATCH_FLEET_MODELS, default 1000; 10,000 rows and 3 curves each,
+// gaussian) due in the same slot, run by one App with Workers = the number
+// of CPUs. It reports
+//
+//   - wall_s: the slot's wall time, from the first refit's start to the last
+//     refit's finish as the fits table records them (the jobs are all
+//     enqueued before River starts: the schedule is yearly, so the bring-up's
+//     catch-up enqueues this year's slot for every model);
+//   - startup_wall_s: from Start to the poll that saw the last fit row
+//     (includes migrations, enqueueing and the 100 ms poll granularity);
+//   - purefit_s_per_core: the sum over models of fit.Fit on the same rows
+//     held in memory (fit.Table), timed one model at a time, divided by
+//     runtime.NumCPU();
+//   - wall_over_purefit: wall_s / purefit_s_per_core (target ≤ 1.2);
+//   - refit_s_per_core: the sum of the fits' recorded durations (pull, fit,
+//     compare, record) divided by the cores, to tell the refits' own
+//     overhead from time lost between jobs.
+//
+// It is slow (the data alone is F × 10,000 rows), so it runs only with
+// CURVEWATCH_FLEET=1, and once: use -benchtime 1x (bench/fleet.sh).
+func BenchmarkFleet(b *testing.B) {
+	if os.Getenv(envFleet) != "1" {
+		b.Skip("set " + envFleet + "=1 to run the fleet benchmark (slow; see bench/fleet.sh)")
+	}
+	models := 1000
+	if s := os.Getenv(envFleetModels); s != "" {
+		n, err := strconv.Atoi(s)
+		if err != nil || n < 1 {
+			b.Fatalf("%s=%q: want a positive integer", envFleetModels, s)
+		}
+		models = n
+	}
+	cores := runtime.NumCPU()
+	ctx := context.Background()
+	url, schema := pgtest.Schema(b)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer pool.Close()
+
+	// Yearly slots: the latest is 1 January this year, 00:00 UTC, and the
+	// rows lie in the 30 days before it.
+	const schedule = "0 0 1 1 *"
+	slot := time.Date(time.Now().UTC().Year(), 1, 1, 0, 0, 0, 0, time.UTC)
+	const window = 30 * 24 * time.Hour
+
+	b.Logf("fleet: %d models × %d rows, %d cores", models, fleetRows, cores)
+	t0 := time.Now()
+	if err := makeFleetTable(ctx, pool, models, slot); err != nil {
+		b.Fatal(err)
+	}
+	b.Logf("fleet table made in %.1f s", time.Since(t0).Seconds())
+
+	spec, err := fit.ParseSpec([]byte(fleetSpec))
+	if err != nil {
+		b.Fatal(err)
+	}
+	cron, err := config.ParseSchedule(schedule, time.UTC)
+	if err != nil {
+		b.Fatal(err)
+	}
+	cfg := &config.Config{
+		Database: config.NewSecret(url), Schema: schema, Listen: "127.0.0.1:0",
+		Timezone: "UTC", Location: time.UTC,
+	}
+	for k := range models {
+		cfg.Models = append(cfg.Models, config.Model{
+			Name: fmt.Sprintf("fleet-%04d", k), Schedule: schedule, Cron: cron, Spec: spec,
+			Source: config.Source{Table: source.Table{Name: "fleet"}, Time: "observed_at", Where: fmt.Sprintf("sensor = %d", k),
+				Window: window, Overlap: time.Hour},
+			Watch: config.Watch{Against: config.AgainstBaseline, PracticalShift: config.DefaultPracticalShift, Level: config.DefaultLevel,
+				DevianceIncrease: config.DefaultDevianceIncrease, ConfirmRuns: config.DefaultConfirmRuns},
+		})
+	}
+
+	// (b) The pure fits, one model at a time, on the rows held in memory.
+	var pure time.Duration
+	for k := range models {
+		tab, err := fleetRowsOf(ctx, pool, k)
+		if err != nil {
+			b.Fatal(err)
+		}
+		start := time.Now()
+		doc, err := fit.Fit(ctx, spec, tab, fit.Options{TimeColumn: "observed_at"})
+		pure += time.Since(start)
+		if err != nil {
+			b.Fatalf("pure fit of sensor %d: %v", k, err)
+		}
+		if doc.N != fleetRows {
+			b.Fatalf("pure fit of sensor %d used %d rows, want %d", k, doc.N, fleetRows)
+		}
+	}
+	pureFitPerCore := pure.Seconds() / float64(cores)
+	b.Logf("pure fits: %.2f s in all, %.2f s per core", pure.Seconds(), pureFitPerCore)
+
+	// (a) The App runs the slot for every model.
+	logs := &logBuffer{}
+	a, err := New(cfg, Options{Workers: cores, RetryMin: 100 * time.Millisecond, RetryMax: 500 * time.Millisecond,
+		Logger: slog.New(slog.NewTextHandler(logs, &slog.HandlerOptions{Level: slog.LevelInfo}))})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ResetTimer()
+	started := time.Now()
+	if err := a.Start(ctx); err != nil {
+		b.Fatal(err)
+	}
+	defer func() {
+		sctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+		defer cancel()
+		if err := a.Stop(sctx); err != nil {
+			b.Errorf("stop: %v", err)
+		}
+		if b.Failed() || os.Getenv("CURVEWATCH_TEST_APPLOG") != "" {
+			b.Logf("app log:\n%s", logs)
+		}
+	}()
+	// Generous: ten times the pure fit time per core, plus start-up.
+	deadline := time.Now().Add(2*time.Minute + 10*time.Duration(pureFitPerCore*float64(time.Second)))
+	for {
+		var n int
+		if err := pool.QueryRow(ctx, `SELECT count(*) FROM fits WHERE slot = $1`, slot).Scan(&n); err != nil {
+			// The fits table appears with the App's migrations.
+			if time.Now().After(deadline) {
+				b.Fatalf("count fits: %v", err)
+			}
+		} else if n >= models {
+			break
+		}
+		if time.Now().After(deadline) {
+			b.Fatalf("%d of %d models have a fit for slot %s after %s", n, models, slot.Format(time.RFC3339), time.Since(started).Round(time.Second))
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+	startupWall := time.Since(started)
+	b.StopTimer()
+
+	var bad int
+	var wall, refits float64
+	err = pool.QueryRow(ctx, `SELECT count(*) FILTER (WHERE status <> 'succeeded'),
+		extract(epoch FROM max(finished_at) - min(started_at))::double precision, sum(duration_seconds)
+		FROM fits WHERE slot = $1`, slot).Scan(&bad, &wall, &refits)
+	if err != nil {
+		b.Fatal(err)
+	}
+	if bad != 0 {
+		var reason string
+		_ = pool.QueryRow(ctx, `SELECT status || ': ' || coalesce(reason, '') FROM fits WHERE slot = $1 AND status <> 'succeeded' LIMIT 1`, slot).Scan(&reason)
+		b.Fatalf("%d of %d fits did not succeed (first: %s)", bad, models, reason)
+	}
+	b.ReportMetric(wall, "wall_s")
+	b.ReportMetric(startupWall.Seconds(), "startup_wall_s")
+	b.ReportMetric(pureFitPerCore, "purefit_s_per_core")
+	b.ReportMetric(wall/pureFitPerCore, "wall_over_purefit")
+	// Where the time goes: the refits' own durations (pull, fit, compare,
+	// record) per core, against the wall (the rest is queueing).
+	b.ReportMetric(refits/float64(cores), "refit_s_per_core")
+	b.Logf("slot wall %.2f s (%.2f s from Start), pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); the refits' own durations %.2f s per core",
+		wall, startupWall.Seconds(), pureFitPerCore, wall/pureFitPerCore, refits/float64(cores))
+}
+
+// makeFleetTable fills one source table with every model's rows: sensor k
+// (0 ≤ k < models) has fleetRows rows, 200 s apart, ending just before
+// slot, with y = sin(2π x1) + (x2 − ½)² · 4 + 0.5 x3 + N(0, 0.3²). One
+// INSERT … SELECT, seeded with setseed on the same connection, so the data
+// are the same every run.
+func makeFleetTable(ctx context.Context, pool *pgxpool.Pool, models int, slot time.Time) error {
+	conn, err := pool.Acquire(ctx)
+	if err != nil {
+		return err
+	}
+	defer conn.Release()
+	for _, q := range []string{
+		`CREATE TABLE fleet (sensor integer NOT NULL, observed_at timestamptz NOT NULL,
+			x1 double precision, x2 double precision, x3 double precision, y double precision)`,
+		`SELECT setseed(0.42)`,
+	} {
+		if _, err := conn.Exec(ctx, q); err != nil {
+			return fmt.Errorf("%s: %w", q, err)
+		}
+	}
+	const insert = `INSERT INTO fleet (sensor, observed_at, x1, x2, x3, y)
+		SELECT sensor, observed_at, x1, x2, x3,
+		       sin(2 * pi() * x1) + 4 * (x2 - 0.5)^2 + 0.5 * x3 + 0.3 * sqrt(-2 * ln(1 - u1)) * cos(2 * pi() * u2)
+		FROM (SELECT s AS sensor, $1::timestamptz - i * interval '200 seconds' AS observed_at,
+		             random() AS x1, random() AS x2, random() AS x3, random() AS u1, random() AS u2
+		      FROM generate_series(0, $2::int - 1) AS s, generate_series(1, $3::int) AS i) AS g`
+	if _, err := conn.Exec(ctx, insert, slot, models, fleetRows); err != nil {
+		return fmt.Errorf("fill the fleet table: %w", err)
+	}
+	for _, q := range []string{`CREATE INDEX ON fleet (sensor, observed_at)`, `ANALYZE fleet`} {
+		if _, err := conn.Exec(ctx, q); err != nil {
+			return fmt.Errorf("%s: %w", q, err)
+		}
+	}
+	return nil
+}
+
+// fleetRowsOf reads sensor k's rows, in time order, into a fit.Table with
+// the time as seconds since 1970 (as the daemon's source delivers it).
+func fleetRowsOf(ctx context.Context, pool *pgxpool.Pool, k int) (*fit.Table, error) {
+	rows, err := pool.Query(ctx, `SELECT extract(epoch FROM observed_at)::double precision, x1, x2, x3, y
+		FROM fleet WHERE sensor = $1 ORDER BY observed_at`, k)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	cols := []string{"observed_at", "x1", "x2", "x3", "y"}
+	tab := &fit.Table{Numeric: map[string][]float64{}}
+	vals := make([]float64, len(cols))
+	ptrs := make([]any, len(cols))
+	for i := range vals {
+		ptrs[i] = &vals[i]
+	}
+	for rows.Next() {
+		if err := rows.Scan(ptrs...); err != nil {
+			return nil, err
+		}
+		for i, c := range cols {
+			tab.Numeric[c] = append(tab.Numeric[c], vals[i])
+		}
+	}
+	return tab, rows.Err()
+}
