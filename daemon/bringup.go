@@ -207,9 +207,14 @@ func (a *App) newClient(pool *pgxpool.Pool, schema string) (*river.Client[pgx.Tx
 		}, &river.PeriodicJobOpts{RunOnStart: true}))
 	}
 	c, err := river.NewClient(riverpgxv5.New(pool), &river.Config{
-		Schema:               schema,
-		Queues:               map[string]river.QueueConfig{Queue: {MaxWorkers: a.opts.Workers}},
-		Workers:              workers,
+		Schema:  schema,
+		Queues:  map[string]river.QueueConfig{Queue: {MaxWorkers: a.opts.Workers}},
+		Workers: workers,
+		// Refits are seconds long and a fleet's slot queues hundreds at
+		// once: fetch the next job soon after a worker frees (River's
+		// defaults, 100 ms and 1 s, leave workers idle between jobs).
+		FetchCooldown:        20 * time.Millisecond,
+		FetchPollInterval:    250 * time.Millisecond,
 		PeriodicJobs:         periodic,
 		JobTimeout:           a.opts.JobTimeout,
 		RescueStuckJobsAfter: a.opts.RescueAfter,
