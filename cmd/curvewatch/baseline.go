@@ -75,14 +75,9 @@ func runBaseline(ctx context.Context, e *env, args []string) error {
 	if sub == "pin" && fitID <= 0 {
 		return fl.usageError("--fit is required: the id of the fit to pin, a positive number (see curvewatch history)")
 	}
-	cfg, m, err := loadModel(path, model)
+	m, store, dsn, err := modelStore(ctx, path, model)
 	if err != nil {
 		return err
-	}
-	dsn := cfg.Database.Reveal()
-	store, err := history.Open(ctx, dsn, cfg.Schema)
-	if err != nil {
-		return errors.New(scrub(err.Error(), dsn))
 	}
 	defer store.Close()
 	if sub == "show" {

@@ -40,14 +40,9 @@ func runHistory(ctx context.Context, e *env, args []string) error {
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
 	}
-	cfg, m, err := loadModel(path, model)
+	m, store, dsn, err := modelStore(ctx, path, model)
 	if err != nil {
 		return err
-	}
-	dsn := cfg.Database.Reveal()
-	store, err := history.Open(ctx, dsn, cfg.Schema)
-	if err != nil {
-		return errors.New(scrub(err.Error(), dsn))
 	}
 	defer store.Close()
 	fits, err := store.Fits(ctx, m.Name, limit, 0)

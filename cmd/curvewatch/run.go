@@ -112,3 +112,18 @@ func loadModel(path, name string) (*config.Config, *config.Model, error) {
 	}
 	return cfg, m, nil
 }
+
+// modelStore loads the config, finds the model and opens the history
+// store. The returned dsn is for scrubbing error messages; close the store.
+func modelStore(ctx context.Context, path, name string) (m *config.Model, store *history.Store, dsn string, err error) {
+	cfg, m, err := loadModel(path, name)
+	if err != nil {
+		return nil, nil, "", err
+	}
+	dsn = cfg.Database.Reveal()
+	store, err = history.Open(ctx, dsn, cfg.Schema)
+	if err != nil {
+		return nil, nil, "", errors.New(scrub(err.Error(), dsn))
+	}
+	return m, store, dsn, nil
+}
