@@ -12,6 +12,8 @@ import (
 	"unicode/utf8"
 
 	"go.yaml.in/yaml/v3"
+
+	"github.com/curvewatch/curvewatch/fit/yamlnode"
 )
 
 // document decodes data as a single YAML document and returns its top node,
@@ -137,50 +139,6 @@ func (p *specParser) unknownKey(e yamlEntry, path, label string, known ...string
 	p.add(e.line, path, "unknown key %q%s (%s%s)", clipText(e.key), hint, label, list)
 }
 
-// derefNode follows aliases to the node they name.
-func derefNode(n *yaml.Node) *yaml.Node {
-	for n.Kind == yaml.AliasNode && n.Alias != nil {
-		n = n.Alias
-	}
-	return n
-}
-
-func isNullNode(n *yaml.Node) bool {
-	n = derefNode(n)
-	return n.Kind == yaml.ScalarNode && n.ShortTag() == "!!null"
-}
-
-// describeNode says what a node is, for "must be X, not Y" messages.
-func describeNode(n *yaml.Node) string {
-	n = derefNode(n)
-	switch n.Kind {
-	case yaml.MappingNode:
-		return "a mapping"
-	case yaml.SequenceNode:
-		return "a list"
-	case yaml.ScalarNode:
-		switch n.ShortTag() {
-		case "!!null":
-			return "an empty value"
-		case "!!str":
-			return "the text " + strconv.Quote(clipText(n.Value))
-		case "!!int", "!!float", "!!bool":
-			return clipText(n.Value)
-		}
-		return "a value tagged " + clipText(n.Tag)
-	}
-	return "an alias"
-}
-
-// clipText shortens s for an error message.
-func clipText(s string) string {
-	const most = 40
-	if r := []rune(s); len(r) > most {
-		return string(r[:most]) + "…"
-	}
-	return s
-}
-
 // word reads the value of e as a name: of a column or of the model.
 func (p *specParser) word(e yamlEntry, path, want string) (string, bool) {
 	return p.text(e.val, e.line, path, e.key, want)
@@ -272,3 +230,11 @@ func (p *specParser) flag(e yamlEntry, path string) (bool, bool) {
 	}
 	return false, false
 }
+
+// The node helpers shared with the daemon's config reader.
+var (
+	derefNode    = yamlnode.Deref
+	isNullNode   = yamlnode.IsNull
+	describeNode = yamlnode.Describe
+	clipText     = yamlnode.Clip
+)

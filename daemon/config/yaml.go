@@ -13,6 +13,7 @@ import (
 	"go.yaml.in/yaml/v3"
 
 	"github.com/curvewatch/curvewatch/fit"
+	"github.com/curvewatch/curvewatch/fit/yamlnode"
 )
 
 // parser collects problems while it reads a config.
@@ -169,50 +170,6 @@ func join(path, key string) string {
 	return path + "." + key
 }
 
-// deref follows aliases to the node they name.
-func deref(n *yaml.Node) *yaml.Node {
-	for n.Kind == yaml.AliasNode && n.Alias != nil {
-		n = n.Alias
-	}
-	return n
-}
-
-func isNull(n *yaml.Node) bool {
-	n = deref(n)
-	return n.Kind == yaml.ScalarNode && n.ShortTag() == "!!null"
-}
-
-// describe says what a node is, for "must be X, not Y" messages.
-func describe(n *yaml.Node) string {
-	n = deref(n)
-	switch n.Kind {
-	case yaml.MappingNode:
-		return "a mapping"
-	case yaml.SequenceNode:
-		return "a list"
-	case yaml.ScalarNode:
-		switch n.ShortTag() {
-		case "!!null":
-			return "an empty value"
-		case "!!str":
-			return "the text " + strconv.Quote(clip(n.Value))
-		case "!!int", "!!float", "!!bool":
-			return clip(n.Value)
-		}
-		return "a value tagged " + clip(n.Tag)
-	}
-	return "an alias"
-}
-
-// clip shortens s for an error message.
-func clip(s string) string {
-	const most = 40
-	if r := []rune(s); len(r) > most {
-		return string(r[:most]) + "…"
-	}
-	return s
-}
-
 // text reads a scalar as text. Numbers are accepted as written; empty
 // values, booleans, lists and mappings are not. want says what to give.
 func (p *parser) text(e entry, path, want string) (string, bool) {
@@ -297,3 +254,11 @@ func (p *parser) list(e entry, path, want string) ([]*yaml.Node, bool) {
 func closest(name string, candidates []string) (string, bool) {
 	return fit.ClosestName(name, candidates)
 }
+
+// The node helpers shared with the spec parser.
+var (
+	deref    = yamlnode.Deref
+	isNull   = yamlnode.IsNull
+	describe = yamlnode.Describe
+	clip     = yamlnode.Clip
+)
