@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 	"strings"
 
 	"github.com/curvewatch/curvewatch/fit"
@@ -56,8 +57,8 @@ func recordComparison(ctx context.Context, tx pgx.Tx, model string, refID, candI
 	defer sub.Rollback(ctx)
 	var id int64
 	err = sub.QueryRow(ctx, `
-		INSERT INTO comparisons (model, reference_fit_id, candidate_fit_id, breach, report)
-		VALUES ($1, $2, $3, $4, $5) RETURNING id`, model, refID, candID, rep.Breach, body).Scan(&id)
+		INSERT INTO comparisons (model, reference_fit_id, candidate_fit_id, breach, report, degradation_ratio, p_value)
+		VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id`, model, refID, candID, rep.Breach, body, degradationRatio(rep), smallestP(rep)).Scan(&id)
 	switch pgCode(err) {
 	case "":
 	case pgerrcode.ForeignKeyViolation:
@@ -155,4 +156,33 @@ func (s *Store) Verdicts(ctx context.Context, model string, fitIDs []int64) (map
 		out[fitID] = v
 	}
 	return out, rows.Err()
+}
+
+// degradationRatio is the report's predictive deviance ratio, nil when it
+// has none.
+func degradationRatio(rep *fit.ShiftReport) *float64 {
+	if rep.Degradation == nil || math.IsNaN(rep.Degradation.Ratio) || math.IsInf(rep.Degradation.Ratio, 0) {
+		return nil
+	}
+	return &rep.Degradation.Ratio
+}
+
+// smallestP is the smallest multiplicity-adjusted p-value among the
+// report's terms and its level: the p-value of "nothing changed" for the
+// model as a whole (Holm's adjustment keeps it valid as such), nil when no
+// test was made.
+func smallestP(rep *fit.ShiftReport) *float64 {
+	p := math.Inf(1)
+	for _, t := range rep.Terms {
+		if t.Verdict != fit.VerdictNotCompared {
+			p = math.Min(p, t.PAdjusted)
+		}
+	}
+	if rep.Level.Verdict != fit.VerdictNotCompared && rep.Level.Verdict != "" {
+		p = math.Min(p, rep.Level.PAdjusted)
+	}
+	if math.IsInf(p, 1) || math.IsNaN(p) {
+		return nil
+	}
+	return &p
 }

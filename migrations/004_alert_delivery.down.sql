@@ -1,0 +1,5 @@
+DROP TABLE slot_tests;
+DROP TABLE alert_deliveries;
+ALTER TABLE comparisons DROP COLUMN degradation_ratio, DROP COLUMN p_value;
+ALTER TABLE alert_events DROP COLUMN summary, DROP COLUMN fit_id;
+ALTER TABLE alert_states DROP COLUMN firing_since, DROP COLUMN summary, DROP COLUMN updated_at;
