@@ -44,6 +44,7 @@ const (
 	DefaultLevel            = 0.99
 	DefaultDevianceIncrease = 0.15
 	DefaultConfirmRuns      = 2
+	DefaultFailingRuns      = 3
 )
 
 // What a model's new fit is compared with (watch.against).
@@ -77,6 +78,12 @@ type Config struct {
 	Timezone string `json:"timezone"`
 	// Location is Timezone loaded.
 	Location *time.Location `json:"-"`
+	// PublicURL is the address people reach the daemon's dashboard at
+	// (key public_url; default http:// + Listen). Alerts link to
+	// PublicURL/models/NAME.
+	PublicURL string `json:"public_url"`
+	// API holds the HTTP API's settings.
+	API API `json:"api"`
 	// Alerting says where alerts go.
 	Alerting Alerting `json:"alerting"`
 	// Models are the models to refit, in file order; at least one, with
@@ -87,9 +94,33 @@ type Config struct {
 	Lines map[string]int `json:"-"`
 }
 
+// API holds the HTTP API's settings.
+type API struct {
+	// Token, when set, allows the API's writes (pinning a baseline) to
+	// requests that carry it as a bearer token. Without it the API is read
+	// only. Usually token: ${CURVEWATCH_API_TOKEN}.
+	Token Secret `json:"token"`
+}
+
+// Defaults of the alerting section.
+const (
+	// DefaultResendEvery is how often firing alerts are re-sent to
+	// Alertmanager so that they do not expire.
+	DefaultResendEvery = time.Minute
+)
+
 // Alerting lists where alerts are delivered. Both lists may be empty: the
 // daemon then only records alert states and exports metrics.
 type Alerting struct {
+	// FDR, when above 0, controls the false discovery rate at this level
+	// across the models that share a schedule (Benjamini & Hochberg 1995):
+	// a slot's shift findings count as breaches only for the models that
+	// are discoveries among all of that slot's comparisons (key fdr; off by
+	// default; below 1, e.g. 0.1).
+	FDR float64 `json:"fdr,omitempty"`
+	// ResendEvery is how often firing alerts are re-sent to Alertmanager
+	// (key resend_every; default 1m).
+	ResendEvery time.Duration `json:"resend_every"`
 	// Alertmanager holds the base URLs (http or https) of Alertmanager
 	// instances; each alert goes to every one of them.
 	Alertmanager []string `json:"alertmanager,omitempty"`
@@ -182,6 +213,9 @@ type Watch struct {
 	// ConfirmRuns is how many consecutive breaching runs it takes before
 	// an alert fires (default 2); at least 1.
 	ConfirmRuns int `json:"confirm_runs"`
+	// FailingRuns is how many refits in a row must fail before a
+	// refit-failing alert fires (default 3); at least 1.
+	FailingRuns int `json:"failing_runs"`
 }
 
 // Tolerance returns the watch section as fit.Compare's tolerance, the

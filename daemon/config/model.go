@@ -203,4 +203,4 @@ func (p *parser) source(e entry, path string, lines map[string]int) Source {
 }
 
 // watchKeys are the keys of a watch section.
-var watchKeys = []string{"against", "practical_shift", "level", "deviance_increase", "confirm_runs"}
+var watchKeys = []string{"against", "practical_shift", "level", "deviance_increase", "confirm_runs", "failing_runs"}

@@ -14,7 +14,7 @@ import (
 )
 
 // topKeys are the keys of the config's top level.
-var topKeys = []string{"database", "schema", "listen", "timezone", "alerting", "models"}
+var topKeys = []string{"database", "schema", "listen", "public_url", "timezone", "api", "alerting", "models"}
 
 // config reads the top-level mapping.
 func (p *parser) config(root *yaml.Node) *Config {
@@ -22,7 +22,8 @@ func (p *parser) config(root *yaml.Node) *Config {
 	if !ok {
 		return nil
 	}
-	c := &Config{Schema: DefaultSchema, Listen: DefaultListen, Timezone: DefaultTimezone, Location: time.UTC, Lines: map[string]int{}}
+	c := &Config{Schema: DefaultSchema, Listen: DefaultListen, Timezone: DefaultTimezone, Location: time.UTC, Lines: map[string]int{},
+		Alerting: Alerting{ResendEvery: DefaultResendEvery}}
 	byKey := map[string]entry{}
 	for _, e := range entries {
 		byKey[e.key] = e
@@ -58,11 +59,20 @@ func (p *parser) config(root *yaml.Node) *Config {
 					c.Listen = v
 				}
 			}
+		case "public_url":
+			if v, ok := p.text(e, e.key, "the dashboard's address as people reach it, e.g. https://curvewatch.example.org"); ok && p.url(v, e.line, e.key, "public_url", "https://curvewatch.example.org") {
+				c.PublicURL = strings.TrimRight(v, "/")
+			}
+		case "api":
+			c.API = p.api(e)
 		case "alerting":
 			c.Alerting = p.alerting(e)
 		case "models":
 			c.Models = p.models(e, c.Location)
 		}
+	}
+	if c.PublicURL == "" {
+		c.PublicURL = "http://" + c.Listen
 	}
 	if _, ok := byKey["database"]; !ok {
 		p.add(root.Line, "", "missing key \"database\": give the PostgreSQL connection string, e.g. database: ${DATABASE_URL}")
@@ -125,17 +135,48 @@ func (p *parser) timezone(c *Config, e entry) {
 	c.Timezone, c.Location = v, loc
 }
 
+// api reads the api section.
+func (p *parser) api(e entry) API {
+	var a API
+	entries, ok := p.mapping(e.val, e.line, "api", "api", "token")
+	if !ok {
+		return a
+	}
+	for _, f := range entries {
+		if v, ok := p.text(f, join("api", f.key), `a long random token, e.g. token: "${CURVEWATCH_API_TOKEN}"`); ok {
+			if len(v) < 16 {
+				p.add(f.line, join("api", f.key), "api.token is shorter than 16 characters (the value is not shown): use a long random token, e.g. from openssl rand -hex 24")
+			} else {
+				a.Token = NewSecret(v)
+			}
+		}
+	}
+	return a
+}
+
 // alerting reads the alerting section.
 func (p *parser) alerting(e entry) Alerting {
 	const path = "alerting"
-	var a Alerting
-	entries, ok := p.mapping(e.val, e.line, path, "alerting", "alertmanager", "webhooks")
+	a := Alerting{ResendEvery: DefaultResendEvery}
+	entries, ok := p.mapping(e.val, e.line, path, "alerting", "alertmanager", "webhooks", "fdr", "resend_every")
 	if !ok {
 		return a
 	}
 	for _, f := range entries {
 		fpath := join(path, f.key)
 		switch f.key {
+		case "fdr":
+			if v, ok := p.number(f, fpath); ok && (v <= 0 || v >= 1) {
+				p.add(f.line, fpath, "fdr %s must be between 0 and 1: it is the false discovery rate allowed across the models of one schedule, e.g. 0.1; leave fdr out to judge each model alone", clip(f.val.Value))
+			} else if ok {
+				a.FDR = v
+			}
+		case "resend_every":
+			if d, ok := p.duration(f, fpath); ok && d < time.Second {
+				p.add(f.line, fpath, "resend_every %s must be at least 1s: it is how often firing alerts are re-sent to Alertmanager, e.g. 1m", clip(f.val.Value))
+			} else if ok {
+				a.ResendEvery = d
+			}
 		case "alertmanager":
 			items, _ := p.list(f, fpath, "Alertmanager URLs")
 			for i, it := range items {

@@ -13,6 +13,7 @@ func (p *parser) watch(e *entry, path string, spec *fit.Spec) Watch {
 		Level:            DefaultLevel,
 		DevianceIncrease: DefaultDevianceIncrease,
 		ConfirmRuns:      DefaultConfirmRuns,
+		FailingRuns:      DefaultFailingRuns,
 	}
 	if spec != nil {
 		// ParseSpec has checked these values and kept them as string,
@@ -75,6 +76,12 @@ func (p *parser) watch(e *entry, path string, spec *fit.Spec) Watch {
 				p.add(f.line, fpath, "confirm_runs %d must be at least 1: it counts consecutive breaching runs before an alert fires", v)
 			} else if ok {
 				w.ConfirmRuns = v
+			}
+		case "failing_runs":
+			if v, ok := p.whole(f, fpath); ok && v < 1 {
+				p.add(f.line, fpath, "failing_runs %d must be at least 1: it counts refits failing in a row before a refit-failing alert fires", v)
+			} else if ok {
+				w.FailingRuns = v
 			}
 		}
 	}
