@@ -18,6 +18,10 @@ package alerts
 import (
 	"encoding/json"
 	"fmt"
+	"math"
+	"net/url"
+	"strconv"
+	"strings"
 	"time"
 )
 
@@ -220,7 +224,7 @@ func NewAlert(s Status, dashboard string) Alert {
 		a.EndsAt = s.Since
 	}
 	if dashboard != "" {
-		a.URL = dashboard + "/models/" + s.Model
+		a.URL = strings.TrimSuffix(dashboard, "/") + "/models/" + url.PathEscape(s.Model)
 	}
 	return a
 }
@@ -232,14 +236,50 @@ func (a Alert) IdempotencyKey() string {
 	return fmt.Sprintf("%s/%s/%d", a.Key, a.State, a.ChangedAt.UTC().UnixNano())
 }
 
-// NumbersText formats the numbers as compact JSON for annotations.
+// NumbersText formats the numbers as compact JSON for annotations, with
+// the keys sorted. JSON has no NaN or infinity, so a non-finite number is
+// written as the string "NaN", "+Inf" or "-Inf" (a p-value that could not
+// be computed still shows). It is "" when there are no numbers, or when a
+// value cannot be written as JSON at all.
 func (a Alert) NumbersText() string {
 	if len(a.Numbers) == 0 {
 		return ""
 	}
-	b, err := json.Marshal(a.Numbers)
+	b, err := json.Marshal(jsonSafe(a.Numbers))
 	if err != nil {
 		return ""
 	}
 	return string(b)
+}
+
+// jsonSafe returns v with every non-finite float replaced by its name,
+// looking inside maps and slices of the kinds JSON decoding produces.
+func jsonSafe(v any) any {
+	switch x := v.(type) {
+	case float64:
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return strconv.FormatFloat(x, 'g', -1, 64)
+		}
+	case float32:
+		return jsonSafe(float64(x))
+	case map[string]any:
+		out := make(map[string]any, len(x))
+		for k, e := range x {
+			out[k] = jsonSafe(e)
+		}
+		return out
+	case []any:
+		out := make([]any, len(x))
+		for i, e := range x {
+			out[i] = jsonSafe(e)
+		}
+		return out
+	case []float64:
+		out := make([]any, len(x))
+		for i, e := range x {
+			out[i] = jsonSafe(e)
+		}
+		return out
+	}
+	return v
 }

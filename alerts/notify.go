@@ -2,6 +2,7 @@ package alerts
 
 import (
 	"context"
+	"net/http"
 	"time"
 )
 
@@ -32,10 +33,12 @@ type Notifier interface {
 }
 
 // Outbox is the queue of pending deliveries (jobs/history implements it in
-// PostgreSQL).
+// PostgreSQL). The Dispatcher calls it from several goroutines at once.
 type Outbox interface {
 	// Claim takes up to limit deliveries that are due, hiding them from
 	// other claimers for lease (several replicas may dispatch at once).
+	// Deliveries should come oldest first: the Dispatcher sends the changes
+	// of one alert to one receiver in the order they are claimed.
 	Claim(ctx context.Context, limit int, lease time.Duration) ([]Delivery, error)
 	// Delivered marks a delivery done.
 	Delivered(ctx context.Context, id int64) error
@@ -45,4 +48,13 @@ type Outbox interface {
 	// Abandon records a failed attempt after which the delivery is not
 	// tried again.
 	Abandon(ctx context.Context, id int64, reason string) error
+}
+
+// StatusRetryable reports whether an HTTP request that got a status outside
+// 2xx may succeed if sent again: a server error (5xx), 429 Too Many
+// Requests or 408 Request Timeout. Any other status (a 4xx: the request
+// itself is wrong, or not allowed) never will. Receivers over HTTP use it to
+// classify their failures.
+func StatusRetryable(code int) bool {
+	return code >= 500 || code == http.StatusTooManyRequests || code == http.StatusRequestTimeout
 }

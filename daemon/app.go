@@ -37,9 +37,11 @@ import (
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgxpool"
+	"github.com/prometheus/client_golang/prometheus"
 	"github.com/riverqueue/river"
 
 	"github.com/curvewatch/curvewatch/daemon/config"
+	"github.com/curvewatch/curvewatch/daemon/web"
 	"github.com/curvewatch/curvewatch/jobs"
 	"github.com/curvewatch/curvewatch/jobs/history"
 )
@@ -95,6 +97,12 @@ type Options struct {
 	// it cancels them (default: half the time left on Stop's context, or 5
 	// s when it has no deadline).
 	SoftStop time.Duration
+	// DeliveryRetryMin is the first wait before a failed alert delivery is
+	// tried again (default 5 s; it doubles per attempt up to 10 minutes).
+	DeliveryRetryMin time.Duration
+	// Registry receives the daemon's metrics, served on /metrics
+	// (default: a new registry of the App's own; never the global one).
+	Registry *prometheus.Registry
 }
 
 func (o Options) withDefaults() Options {
@@ -118,6 +126,9 @@ type App struct {
 	names   []string // model names in config order
 	sched   map[string]schedule
 	handler http.Handler
+	reg     *prometheus.Registry
+	metrics *metrics
+	web     *web.Server
 
 	ready    chan struct{} // closed when the database side is up
 	isReady  atomic.Bool
@@ -137,6 +148,7 @@ type App struct {
 	store        *history.Store
 	client       *river.Client[pgx.Tx]
 	riverStarted bool
+	delivery     *delivery // alert states and their delivery
 }
 
 const (
@@ -187,6 +199,16 @@ func New(cfg *config.Config, opts Options) (*App, error) {
 		a.sched[m.Name] = newSchedule(m.Cron)
 		a.names = append(a.names, m.Name)
 	}
+	a.reg = opts.Registry
+	if a.reg == nil {
+		a.reg = prometheus.NewRegistry()
+	}
+	a.metrics = newMetrics(a.reg, nil, a.names, a.log)
+	w, err := web.New(web.Config{Models: webModels(cfg), Token: cfg.API.Token.Reveal(), Logger: a.log})
+	if err != nil {
+		return nil, fmt.Errorf("daemon: %w", err)
+	}
+	a.web = w
 	mux := http.NewServeMux()
 	a.routes(mux)
 	a.handler = mux
@@ -300,6 +322,11 @@ func (a *App) stop(ctx context.Context) error {
 			errs = append(errs, err)
 		}
 	}
+	a.metrics.setFleet(nil) // the store closes: scrapes stop reading it
+	a.web.SetStore(nil)
+	if a.delivery != nil {
+		a.delivery.stop()
+	}
 	if a.store != nil {
 		if !within(ctx, a.store.Close) {
 			errs = append(errs, errors.New("daemon: stop: the history store's connections were not all returned in time"))
@@ -365,6 +392,16 @@ func (a *App) resources() (*pgxpool.Pool, *history.Store) {
 
 func (a *App) setNotReady(why string) {
 	a.lastErr.Store(&why)
+}
+
+// webModels describes the configured models to the dashboard.
+func webModels(cfg *config.Config) []web.Model {
+	out := make([]web.Model, len(cfg.Models))
+	for i, m := range cfg.Models {
+		out[i] = web.Model{Name: m.Name, Schedule: m.Schedule, Table: m.Source.Table.String(), Window: m.Source.Window,
+			Against: m.Watch.Against, Tolerance: m.Watch.Tolerance(), ConfirmRuns: m.Watch.ConfirmRuns, MaxAge: m.MaxAge}
+	}
+	return out
 }
 
 // JobModel turns a configured model into what a refit needs.

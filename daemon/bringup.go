@@ -77,6 +77,17 @@ func (a *App) up(ctx, base context.Context) error {
 		a.mu.Lock()
 		a.store, store = s, s
 		a.mu.Unlock()
+		a.metrics.setFleet(s)
+		a.web.SetStore(s)
+	}
+	if a.delivery == nil {
+		d := a.newDelivery(store)
+		if err := d.start(a, store); err != nil {
+			return fmt.Errorf("start the alert dispatcher: %w", err)
+		}
+		a.mu.Lock()
+		a.delivery = d
+		a.mu.Unlock()
 	}
 	for _, name := range a.names {
 		if err := store.UpsertModel(ctx, name, a.models[name].Spec); err != nil {

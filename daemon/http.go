@@ -20,6 +20,8 @@ func (a *App) Handler() http.Handler { return a.handler }
 func (a *App) routes(mux *http.ServeMux) {
 	mux.HandleFunc("GET /healthz", a.healthz)
 	mux.HandleFunc("GET /readyz", a.readyz)
+	mux.Handle("GET /metrics", a.metrics.handler())
+	a.web.Register(mux)
 }
 
 // healthz answers 200 while the process runs: a liveness probe.

@@ -92,8 +92,16 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 		return nil
 	}
 
+	d := a.alerting()
 	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log}
+	if d != nil {
+		runner.OnRecord = d.alerter.onRecord
+	}
 	res, err := runner.Run(ctx, m, args.Slot)
+	if err == nil && res.Status != jobs.StatusSlotDone {
+		a.metrics.observeRefit(args.Model, res.Status, res.Duration)
+		d.kick()
+	}
 	switch {
 	case err == nil:
 		log.Debug("refit job done", "status", res.Status, "fit", res.FitID)
@@ -113,6 +121,7 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 		if _, rerr := store.RecordFailure(rctx, args.Model, args.Slot, reason, started, now); rerr != nil {
 			return fmt.Errorf("model %q: %s, and recording that failed: %w", args.Model, reason, rerr)
 		}
+		a.metrics.observeRefit(args.Model, jobs.StatusFailed, now.Sub(started))
 		log.Warn("refit timed out", "timeout", a.opts.JobTimeout)
 		return nil
 	case ctx.Err() != nil:
@@ -127,6 +136,13 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 		// River retries with backoff.
 		return err
 	}
+}
+
+// alerting returns the alert side, nil until the store is open.
+func (a *App) alerting() *delivery {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.delivery
 }
 
 // lockModel takes the per-model advisory lock on a connection of its own,

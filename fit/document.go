@@ -156,6 +156,12 @@ type CurveGrid struct {
 	X   []float64 `json:"x"`
 	Fit []float64 `json:"fit"`
 	SE  []float64 `json:"se"`
+	// Density is how the fitted rows spread along the axis, for plotting
+	// beside the curve: Density[k] estimates the rows (of the curve's
+	// level, for a by-level curve) with the covariate in the k-th of
+	// len(Density) equal bins from X[0] to X[len(X)-1], from the fit's
+	// reservoir sample of rows scaled to all of them.
+	Density []float64 `json:"density,omitempty"`
 }
 
 // SurfaceGrid is a surface tabulated on a rectangular grid; Fit[i][j] is at

@@ -180,6 +180,7 @@ func (f *fitter) document(ctx context.Context, st *pirlsState, sum *summary) (*D
 			tr.Basis = t.record()
 			if t.spec.Kind == Curve {
 				tr.Grid = curveGrid(t, tr.Basis, beta, v, pc, f.opt.GridPoints)
+				tr.Grid.Density = curveDensity(t, sum, tr.Grid)
 			} else {
 				tr.SurfaceGrid = surfaceGrid(t, tr.Basis, beta, v, pc, f.opt.SurfaceGridPoints)
 				markFar(tr.SurfaceGrid, sum.pairs[t.specIndex], tr.Range)
@@ -340,4 +341,46 @@ func markFar(g *SurfaceGrid, pairs *pairSample, ranges [][2]float64) {
 			g.Far[i][j] = !near
 		}
 	}
+}
+
+// densityBins is the number of bins of CurveGrid.Density.
+const densityBins = 40
+
+// curveDensity bins the summary's reservoir sample of rows along the
+// curve's axis (only the rows of its level for a by-level curve) and
+// scales the counts to the rows used.
+func curveDensity(t *termDesign, sum *summary, g *CurveGrid) []float64 {
+	if sum == nil || sum.sample == nil || len(g.X) < 2 {
+		return nil
+	}
+	xs := sum.sample.table.Numeric[t.spec.Columns[0]]
+	if len(xs) == 0 {
+		return nil
+	}
+	var levels []string
+	if t.byColumn != "" {
+		levels = sum.sample.table.Text[t.byColumn]
+	}
+	lo, hi := g.X[0], g.X[len(g.X)-1]
+	out := make([]float64, densityBins)
+	width := (hi - lo) / densityBins
+	for i, x := range xs {
+		if levels != nil && levels[i] != t.byLevel {
+			continue
+		}
+		if width <= 0 || math.IsNaN(x) {
+			continue
+		}
+		k := int((x - lo) / width)
+		if k < 0 || k >= densityBins {
+			// A cyclic curve's rows outside its period, or the top edge.
+			k = min(max(k, 0), densityBins-1)
+		}
+		out[k]++
+	}
+	scale := float64(sum.rowsUsed) / float64(len(xs))
+	for k := range out {
+		out[k] *= scale
+	}
+	return out
 }

@@ -49,6 +49,12 @@ type Runner struct {
 	StatementTimeout time.Duration
 	// Now gives the time for manual runs (default time.Now).
 	Now func() time.Time
+	// OnRecord, when set, runs inside the transaction that records the
+	// refit (a fit or a failure), after the rows are written and
+	// Result.FitID is set: the daemon updates the model's alert states
+	// there, so that they change exactly when the refit is recorded. An
+	// error rolls the whole record back and Run returns it.
+	OnRecord func(ctx context.Context, tx pgx.Tx, res *Result) error
 }
 
 // Status of a refit.
@@ -76,6 +82,9 @@ type Result struct {
 	// CompareNote says why no comparison was made, when none was.
 	CompareNote string
 	Duration    time.Duration
+	// Newest is the newest time-column value among the rows read (zero
+	// when none was read).
+	Newest time.Time
 }
 
 // Run refits model m for slot (zero for a manual run: the window then
@@ -102,11 +111,18 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 	fail := func(reason string) (*Result, error) {
 		finished := now()
 		res.Status, res.Reason, res.Duration = StatusFailed, reason, finished.Sub(started)
-		id, err := r.Store.RecordFailure(ctx, m.Name, slot, reason, started, finished)
+		res.Document, res.Report, res.ReferenceID = nil, nil, 0
+		err := r.Store.InTx(ctx, func(tx pgx.Tx) error {
+			id, err := r.Store.RecordFailureTx(ctx, tx, m.Name, slot, reason, started, finished)
+			if err != nil {
+				return err
+			}
+			res.FitID = id
+			return r.onRecord(ctx, tx, res)
+		})
 		if err != nil {
 			return res, fmt.Errorf("model %q: record the failed refit (%s): %w", m.Name, reason, err)
 		}
-		res.FitID = id
 		log.Warn("refit failed", "model", m.Name, "slot", slot, "reason", reason)
 		return res, nil
 	}
@@ -133,9 +149,11 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		}
 		return fail(err.Error())
 	}
+	// The rows stay open (one snapshot) for the predictive check below.
+	defer rows.Close()
 	doc, fitErr := fit.Fit(ctx, m.Spec, rows, fit.Options{TimeColumn: m.Time})
 	newest := rows.Newest
-	rows.Close()
+	res.Newest = newest
 	if fitErr != nil && !errors.Is(fitErr, fit.ErrNotConverged) {
 		if ctx.Err() != nil {
 			return res, ctx.Err()
@@ -190,6 +208,18 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 			res.CompareNote = "not compared: " + err.Error()
 			refID = 0
 		} else {
+			// How well the reference predicts this window's rows, against
+			// this fit's own optimism-corrected deviance.
+			deg, err := fit.PredictiveDegradation(ctx, ref.Document, doc, rows, rep.Tolerance, false)
+			switch {
+			case err == nil:
+				rep.Degradation = deg
+				rep.Breach = rep.Breach || deg.Breach
+			case ctx.Err() != nil:
+				return res, ctx.Err()
+			default:
+				rep.Warnings = append(rep.Warnings, "no predictive check: "+err.Error())
+			}
 			res.Report, res.ReferenceID = rep, refID
 		}
 	}
@@ -211,9 +241,15 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 			res.ComparisonID = cid
 		}
 		if pinFirst {
-			return r.Store.PinBaselineTx(ctx, tx, m.Name, id, "auto")
+			if err := r.Store.PinBaselineTx(ctx, tx, m.Name, id, "auto"); err != nil {
+				return err
+			}
 		}
-		return nil
+		res.Status = StatusSucceeded
+		if !doc.Convergence.Converged {
+			res.Status = StatusUnconverged
+		}
+		return r.onRecord(ctx, tx, res)
 	})
 	var done *history.SlotDoneError
 	switch {
@@ -223,13 +259,20 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 	case err != nil:
 		return res, fmt.Errorf("model %q: record the fit: %w", m.Name, err)
 	}
-	res.Status = StatusSucceeded
-	if !doc.Convergence.Converged {
-		res.Status = StatusUnconverged
-	}
 	log.Info("refit", "model", m.Name, "slot", slot, "status", res.Status, "rows", doc.N,
 		"deviance_explained", doc.DevianceExplained, "breach", res.Report != nil && res.Report.Breach, "seconds", res.Duration.Seconds())
 	return res, nil
+}
+
+// onRecord runs the OnRecord hook, when set.
+func (r *Runner) onRecord(ctx context.Context, tx pgx.Tx, res *Result) error {
+	if r.OnRecord == nil {
+		return nil
+	}
+	if err := r.OnRecord(ctx, tx, res); err != nil {
+		return fmt.Errorf("after recording: %w", err)
+	}
+	return nil
 }
 
 // epoch converts seconds since 1970 to a time.

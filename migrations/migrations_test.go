@@ -20,8 +20,8 @@ func TestMain(m *testing.M) { pgtest.Main(m) }
 
 // tables are the tables the migrations create, all of them.
 var tables = []string{
-	"alert_events", "alert_states", "baselines", "comparison_terms", "comparisons",
-	"fit_curve_points", "fits", "models", "watermarks",
+	"alert_deliveries", "alert_events", "alert_states", "baselines", "comparison_terms", "comparisons",
+	"fit_curve_points", "fits", "models", "slot_tests", "watermarks",
 }
 
 func ctxT(t *testing.T) context.Context {

@@ -4,13 +4,13 @@ import (
 	"context"
 	"fmt"
 	"os"
-	"os/exec"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"github.com/jackc/pgx/v5"
+
+	"github.com/curvewatch/curvewatch/internal/pgcluster"
 )
 
 func TestMain(m *testing.M) { Main(m) }
@@ -136,39 +136,11 @@ func (r *recorder) Fatalf(format string, args ...any) { r.msg = fmt.Sprintf(form
 func TestNoServerSaysHowToGetOne(t *testing.T) {
 	t.Parallel()
 	r := &recorder{}
-	_, err := findServer("", filepath.Join(t.TempDir(), "*", "bin"))
-	noServer(r, err)
+	noServer(r, fmt.Errorf("%w found: not in `pg_config --bindir`, nor in %s", pgcluster.ErrNoServer, pgcluster.ServerDirs))
 	for _, want := range []string{"initdb", EnvTestURL, "apt-get install postgresql"} {
 		if !strings.Contains(r.msg, want) {
 			t.Errorf("failure %q lacks %q", r.msg, want)
 		}
-	}
-}
-
-func TestFindServerExplainsWhatIsMissing(t *testing.T) {
-	t.Parallel()
-	empty := t.TempDir()
-	_, err := findServer(empty, filepath.Join(empty, "*", "bin"))
-	if err == nil || !strings.Contains(err.Error(), "initdb") {
-		t.Fatalf("findServer in an empty place: %v", err)
-	}
-
-	// The newest version directory wins.
-	root := t.TempDir()
-	for _, v := range []string{"9", "15", "13"} {
-		bin := filepath.Join(root, v, "bin")
-		if err := os.MkdirAll(bin, 0o755); err != nil {
-			t.Fatal(err)
-		}
-		for _, f := range []string{"initdb", "pg_ctl"} {
-			if err := os.WriteFile(filepath.Join(bin, f), nil, 0o755); err != nil {
-				t.Fatal(err)
-			}
-		}
-	}
-	got, err := findServer("", filepath.Join(root, "*", "bin"))
-	if err != nil || got != filepath.Join(root, "15", "bin") {
-		t.Fatalf("findServer = %q, %v; want version 15", got, err)
 	}
 }
 
@@ -177,7 +149,7 @@ func TestFindServerExplainsWhatIsMissing(t *testing.T) {
 // server rely on is tested wherever the server binaries are installed.
 func TestStartCluster(t *testing.T) {
 	t.Parallel()
-	if _, err := findServer(pgConfigBindir(context.Background()), serverDirs); err != nil {
+	if _, err := pgcluster.FindServer(context.Background()); err != nil {
 		if envURL() != "" {
 			// Not a missing server: the tests have one through the URL.
 			t.Skipf("the tests use the server at $%s; no server binaries to test starting a cluster: %v", EnvTestURL, err)
@@ -211,47 +183,5 @@ func TestStartCluster(t *testing.T) {
 	}
 	if _, err := pgx.Connect(ctx, c.URL); err == nil {
 		t.Errorf("server still answers on port %d after Stop", c.Port)
-	}
-}
-
-// TestWatchdogRemovesClusterAfterExit starts a cluster from a child test
-// binary that exits without stopping it, and checks that the watchdog
-// stops the server and removes the directory.
-func TestWatchdogRemovesClusterAfterExit(t *testing.T) {
-	t.Parallel()
-	if os.Getenv("PGTEST_WATCHDOG_CHILD") == "1" {
-		c, err := StartCluster(context.Background())
-		if err != nil {
-			t.Fatal(err)
-		}
-		os.Stdout.WriteString("DIR=" + c.Dir + "\n")
-		os.Exit(0) // no Stop: the watchdog must clean up
-	}
-	if _, err := findServer(pgConfigBindir(context.Background()), serverDirs); err != nil {
-		if envURL() != "" {
-			t.Skipf("the tests use the server at $%s; no server binaries to test the watchdog: %v", EnvTestURL, err)
-		}
-		t.Fatalf("%v; %s", err, howTo)
-	}
-	cmd := exec.Command(os.Args[0], "-test.run=^TestWatchdogRemovesClusterAfterExit$")
-	cmd.Env = append(os.Environ(), "PGTEST_WATCHDOG_CHILD=1")
-	out, err := cmd.CombinedOutput()
-	if err != nil {
-		t.Fatalf("child: %v\n%s", err, out)
-	}
-	_, dir, ok := strings.Cut(string(out), "DIR=")
-	if !ok {
-		t.Fatalf("child printed no directory:\n%s", out)
-	}
-	dir = strings.TrimSpace(strings.SplitN(dir, "\n", 2)[0])
-	deadline := time.Now().Add(time.Minute)
-	for {
-		if _, err := os.Stat(dir); os.IsNotExist(err) {
-			return
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("the watchdog left %s behind a minute after the child exited", dir)
-		}
-		time.Sleep(100 * time.Millisecond) // polling the file system: there is no signal to wait on
 	}
 }

@@ -185,26 +185,50 @@ func curvePoints(doc *fit.Document) ([][]any, error) {
 // recorded even when the slot already has a succeeded fit: it is the
 // history of attempts.
 func (s *Store) RecordFailure(ctx context.Context, model string, slot time.Time, reason string, started, finished time.Time) (int64, error) {
+	var id int64
+	err := s.InTx(ctx, func(tx pgx.Tx) error {
+		var err error
+		id, err = s.RecordFailureTx(ctx, tx, model, slot, reason, started, finished)
+		return err
+	})
+	return id, err
+}
+
+// RecordFailureTx is RecordFailure inside the caller's transaction (so
+// that a failed refit's alert states and deliveries commit with it). A
+// failure is never refused for its details: an empty reason is stored as
+// "unknown", a missing start as the finish (or now, with neither), and a
+// finish before the start as the start.
+func (s *Store) RecordFailureTx(ctx context.Context, tx pgx.Tx, model string, slot time.Time, reason string, started, finished time.Time) (int64, error) {
 	if reason == "" {
 		reason = "unknown"
+	}
+	if started.IsZero() {
+		started = finished
+	}
+	if started.IsZero() {
+		started = time.Now()
 	}
 	if finished.Before(started) {
 		finished = started
 	}
-	var id int64
-	err := s.InTx(ctx, func(tx pgx.Tx) error {
-		if err := ensureModel(ctx, tx, model); err != nil {
-			return err
-		}
-		return tx.QueryRow(ctx, `
-			INSERT INTO fits (model, status, reason, slot, started_at, finished_at)
-			VALUES ($1, 'failed', $2, $3, $4, $5) RETURNING id`,
-			model, reason, nullTime(slot), started, finished).Scan(&id)
-	})
+	id, err := recordFailure(ctx, tx, model, slot, reason, started, finished)
 	if err != nil {
 		return 0, fmt.Errorf("history: record failed refit of model %q: %w", model, err)
 	}
 	return id, nil
+}
+
+func recordFailure(ctx context.Context, tx pgx.Tx, model string, slot time.Time, reason string, started, finished time.Time) (int64, error) {
+	if err := ensureModel(ctx, tx, model); err != nil {
+		return 0, err
+	}
+	var id int64
+	err := tx.QueryRow(ctx, `
+		INSERT INTO fits (model, status, reason, slot, started_at, finished_at)
+		VALUES ($1, 'failed', $2, $3, $4, $5) RETURNING id`,
+		model, reason, nullTime(slot), started, finished).Scan(&id)
+	return id, err
 }
 
 const summaryColumns = `id, model, status, reason, slot, started_at, finished_at, duration_seconds,

@@ -427,3 +427,48 @@ func TestWatermarkNeverMovesBack(t *testing.T) {
 		}
 	}
 }
+
+// TestRecordFailureTx records a failure inside the caller's transaction:
+// nothing stays when it rolls back; odd details never refuse a failure.
+func TestRecordFailureTx(t *testing.T) {
+	t.Parallel()
+	s, conn := newStore(t)
+	abandon := errors.New("refit abandoned")
+	err := s.InTx(ctxT(t), func(tx pgx.Tx) error {
+		if _, err := s.RecordFailureTx(ctxT(t), tx, "m", day(1), "boom", t0, t0); err != nil {
+			return err
+		}
+		return abandon
+	})
+	if !errors.Is(err, abandon) {
+		t.Fatal(err)
+	}
+	if n := count(t, conn, `SELECT count(*) FROM fits`); n != 0 {
+		t.Fatalf("a rolled-back failure left %d fits", n)
+	}
+
+	var id int64
+	err = s.InTx(ctxT(t), func(tx pgx.Tx) error {
+		var err error
+		// No reason, no start, a finish only: recorded all the same.
+		id, err = s.RecordFailureTx(ctxT(t), tx, "m", time.Time{}, "", time.Time{}, t0)
+		return err
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := s.Fit(ctxT(t), id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if f.Status != history.StatusFailed || f.Reason != "unknown" || !f.Slot.IsZero() || !f.Started.Equal(t0) || f.Duration != 0 {
+		t.Errorf("stored %+v", f)
+	}
+	err = s.InTx(ctxT(t), func(tx pgx.Tx) error {
+		_, err := s.RecordFailureTx(ctxT(t), tx, "", day(1), "boom", t0, t0)
+		return err
+	})
+	if err == nil || !strings.Contains(err.Error(), `model ""`) {
+		t.Errorf("a failure of no model: %v", err)
+	}
+}
