@@ -146,8 +146,19 @@ func (al *alerter) judgeFamily(ctx context.Context, tx pgx.Tx, m *config.Model, 
 			p = &v
 		}
 	}
+	before, err := al.store.SlotTestsTx(ctx, tx, m.Schedule, res.Slot)
+	if err != nil {
+		return err
+	}
 	if err := al.store.RecordSlotTestTx(ctx, tx, m.Schedule, res.Slot, m.Name, res.FitID, p); err != nil {
 		return err
+	}
+	for _, t := range before {
+		if t.Model == m.Name {
+			// This model had reported the slot already (a repeat): the
+			// family was judged, or will be, without counting it twice.
+			return nil
+		}
 	}
 	tests, err := al.store.SlotTestsTx(ctx, tx, m.Schedule, res.Slot)
 	if err != nil {

@@ -5,9 +5,13 @@ import (
 	"net/http"
 	"time"
 
+	"github.com/jackc/pgx/v5"
+
 	"github.com/curvewatch/curvewatch/alerts"
 	"github.com/curvewatch/curvewatch/alerts/alertmanager"
 	"github.com/curvewatch/curvewatch/alerts/webhook"
+	"github.com/curvewatch/curvewatch/daemon/config"
+	"github.com/curvewatch/curvewatch/jobs"
 	"github.com/curvewatch/curvewatch/jobs/history"
 )
 
@@ -23,25 +27,45 @@ type delivery struct {
 	done       chan struct{}
 }
 
-// newDelivery builds the receivers named in the config's alerting section.
-func (a *App) newDelivery(store *history.Store) *delivery {
+// notifiers builds the receivers named in the config's alerting section.
+func notifiers(cfg *config.Config) ([]alerts.Notifier, []*alertmanager.Notifier) {
 	client := &http.Client{Timeout: 15 * time.Second}
-	var notifiers []alerts.Notifier
-	d := &delivery{}
-	for _, u := range a.cfg.Alerting.Alertmanager {
+	var all []alerts.Notifier
+	var managers []*alertmanager.Notifier
+	for _, u := range cfg.Alerting.Alertmanager {
 		n := alertmanager.New(u, client)
-		n.Horizon = alertmanager.HorizonFor(a.cfg.Alerting.ResendEvery)
-		d.managers = append(d.managers, n)
-		notifiers = append(notifiers, n)
+		n.Horizon = alertmanager.HorizonFor(cfg.Alerting.ResendEvery)
+		managers = append(managers, n)
+		all = append(all, n)
 	}
-	for _, w := range a.cfg.Alerting.Webhooks {
-		notifiers = append(notifiers, webhook.New(w.URL, w.Secret.Reveal(), client))
+	for _, w := range cfg.Alerting.Webhooks {
+		all = append(all, webhook.New(w.URL, w.Secret.Reveal(), client))
 	}
-	names := make([]string, len(notifiers))
-	for i, n := range notifiers {
+	return all, managers
+}
+
+func receiverNames(ns []alerts.Notifier) []string {
+	names := make([]string, len(ns))
+	for i, n := range ns {
 		names[i] = n.Name()
 	}
-	d.alerter = newAlerter(a.cfg, store, names)
+	return names
+}
+
+// AlertHook returns the hook (for jobs.Runner.OnRecord) that updates the
+// refitted model's alert states in the refit's transaction and queues the
+// deliveries, exactly as the daemon's refits do. The running daemon's
+// dispatcher sends what it queues; `curvewatch run` uses it.
+func AlertHook(cfg *config.Config, store *history.Store) func(ctx context.Context, tx pgx.Tx, res *jobs.Result) error {
+	ns, _ := notifiers(cfg)
+	return newAlerter(cfg, store, receiverNames(ns)).onRecord
+}
+
+// newDelivery builds the alert side over the store.
+func (a *App) newDelivery(store *history.Store) *delivery {
+	notifiers, managers := notifiers(a.cfg)
+	d := &delivery{managers: managers}
+	d.alerter = newAlerter(a.cfg, store, receiverNames(notifiers))
 	d.dispatcher = alerts.NewDispatcher(alerts.DispatcherConfig{
 		Outbox: store.Outbox(), Notifiers: notifiers, Logger: a.log,
 		RetryMin: a.opts.DeliveryRetryMin,

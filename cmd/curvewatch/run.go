@@ -69,7 +69,9 @@ func runRun(ctx context.Context, e *env, args []string) error {
 		return errors.New(scrub(err.Error(), dsn))
 	}
 	defer pool.Close()
-	runner := &jobs.Runner{Source: pool, Store: store, Logger: fl.logger(e)}
+	// Alert states change as the daemon's refits change them; what is to
+	// be delivered waits in the outbox for the serving daemon.
+	runner := &jobs.Runner{Source: pool, Store: store, Logger: fl.logger(e), OnRecord: daemon.AlertHook(cfg, store)}
 	res, err := runner.Run(ctx, daemon.JobModel(m), time.Time{})
 	if err != nil {
 		return errors.New(scrub(err.Error(), dsn))

@@ -253,7 +253,9 @@ func TestPinBaseline(t *testing.T) {
 	f := newFixture(t, token)
 	pin := "/api/v1/models/" + sondeModel + "/baseline"
 	good := fmt.Sprintf(`{"fit_id": %d}`, f.fits[3])
-	auth := func(tok string) []string { return []string{"Authorization", "Bearer " + tok, "Content-Type", "application/json"} }
+	auth := func(tok string) []string {
+		return []string{"Authorization", "Bearer " + tok, "Content-Type", "application/json"}
+	}
 
 	readOnly, err := web.New(web.Config{Store: f.store, Models: models()})
 	if err != nil {

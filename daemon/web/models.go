@@ -220,9 +220,12 @@ func firingByModel(r *http.Request, st *history.Store, model string) (map[string
 }
 
 func (s *Server) listModels(w http.ResponseWriter, r *http.Request, st *history.Store) error {
-	statuses, err := st.Fleet(r.Context(), slices.Clone(s.names))
-	if err != nil {
-		return err
+	var statuses []history.ModelStatus
+	if len(s.names) > 0 { // Fleet(nil) would list every model in the history
+		var err error
+		if statuses, err = st.Fleet(r.Context(), s.names); err != nil {
+			return err
+		}
 	}
 	firing, err := firingByModel(r, st, "")
 	if err != nil {

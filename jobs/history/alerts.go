@@ -56,7 +56,7 @@ func alertStates(ctx context.Context, tx pgx.Tx, schema, model string) (map[aler
 	if model == "" {
 		return nil, errors.New("the model name is empty")
 	}
-	if err := error(nil); err != nil {
+	if err := advisoryLock(ctx, tx, "alert states/"+schema+"/"+model); err != nil {
 		return nil, err
 	}
 	rows, err := tx.Query(ctx, `SELECT `+statusColumns+` FROM alert_states WHERE model = $1 FOR UPDATE`, model)

@@ -6,6 +6,7 @@ import (
 	"math"
 	"slices"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -191,6 +192,10 @@ func TestAlertStatesSerialiseRefits(t *testing.T) {
 					&alerts.Transition{To: alerts.StatePending}, 0)
 			}
 			held, release := make(chan struct{}), make(chan struct{})
+			// Release the first transaction however the test ends, before
+			// the store closes.
+			releaseFirst := sync.OnceFunc(func() { close(release) })
+			t.Cleanup(releaseFirst)
 			firstDone := make(chan error, 1)
 			go func() {
 				firstDone <- s.InTx(ctxT(t), func(tx pgx.Tx) error {
@@ -214,7 +219,9 @@ func TestAlertStatesSerialiseRefits(t *testing.T) {
 				err    error
 			}
 			second := make(chan result, 1)
+			secondDone := make(chan struct{})
 			go func() {
+				defer close(secondDone)
 				var r result
 				r.err = s.InTx(ctxT(t), func(tx pgx.Tx) error {
 					var p uint32
@@ -234,11 +241,9 @@ func TestAlertStatesSerialiseRefits(t *testing.T) {
 				r := <-second
 				t.Fatal(r.err)
 			}
-			waitForLockWait(t, conn, p)
-			select {
-			case r := <-second:
+			if !waitForLockWait(t, conn, p, secondDone) {
+				r := <-second
 				t.Fatalf("the second transaction did not wait: %+v", r)
-			default:
 			}
 
 			// Another model's states are not held up.
@@ -253,7 +258,7 @@ func TestAlertStatesSerialiseRefits(t *testing.T) {
 				t.Errorf("another model: %v", err)
 			}
 
-			close(release)
+			releaseFirst()
 			if err := <-firstDone; err != nil {
 				t.Fatal(err)
 			}
@@ -273,8 +278,9 @@ func TestAlertStatesSerialiseRefits(t *testing.T) {
 	}
 }
 
-// waitForLockWait returns once the backend pid waits for a lock.
-func waitForLockWait(t *testing.T, conn *pgx.Conn, pid uint32) {
+// waitForLockWait returns true once the backend pid waits for a lock, and
+// false if done is closed first.
+func waitForLockWait(t *testing.T, conn *pgx.Conn, pid uint32, done <-chan struct{}) bool {
 	t.Helper()
 	tick := time.NewTicker(5 * time.Millisecond)
 	defer tick.Stop()
@@ -286,9 +292,11 @@ func waitForLockWait(t *testing.T, conn *pgx.Conn, pid uint32) {
 			t.Fatal(err)
 		}
 		if waiting {
-			return
+			return true
 		}
 		select {
+		case <-done:
+			return false
 		case <-tick.C:
 		case <-deadline:
 			t.Fatalf("backend %d never waited for a lock", pid)

@@ -92,7 +92,9 @@ type outbox struct{ s *Store }
 // Claim takes up to limit queued deliveries whose due_at has come, in due
 // order, and makes them due again only after lease: until then no other
 // claimer (on this or another replica) sees them. Rows that another
-// claimer is taking at the same moment are skipped, not waited for.
+// claimer is taking at the same moment are skipped, not waited for. A
+// delivery waits while an earlier one of the same alert to the same
+// receiver is still queued.
 func (o outbox) Claim(ctx context.Context, limit int, lease time.Duration) ([]alerts.Delivery, error) {
 	if limit <= 0 {
 		return nil, nil
@@ -102,8 +104,15 @@ func (o outbox) Claim(ctx context.Context, limit int, lease time.Duration) ([]al
 	}
 	rows, err := o.s.pool.Query(ctx, `
 		WITH due AS (
-			SELECT id, due_at FROM alert_deliveries
+			SELECT id, due_at FROM alert_deliveries q
 			WHERE state = 'queued' AND due_at <= now()
+			  -- A later change of an alert never overtakes an earlier
+			  -- one still queued for the same receiver (a resolution
+			  -- waits for its firing).
+			  AND NOT EXISTS (SELECT 1 FROM alert_deliveries o
+			                  WHERE o.state = 'queued' AND o.receiver = q.receiver AND o.model = q.model
+			                    AND o.alert->>'term' = q.alert->>'term' AND o.alert->>'kind' = q.alert->>'kind'
+			                    AND o.id < q.id)
 			ORDER BY due_at, id LIMIT $1
 			FOR UPDATE SKIP LOCKED
 		), claimed AS (

@@ -120,7 +120,7 @@ func TestClaimConcurrently(t *testing.T) {
 	const alertsQueued, claimers = 30, 4
 	receivers := []string{"webhook:http://a", "webhook:http://b"}
 	for i := range alertsQueued {
-		enqueue(t, s, receivers, testAlert(fmt.Sprintf("m%d", i%3), i))
+		enqueue(t, s, receivers, testAlert(fmt.Sprintf("m%d", i), i)) // 30 alerts: none waits for another
 	}
 	out := s.Outbox()
 	claimed := make([][]int64, claimers)
@@ -181,8 +181,10 @@ func TestClaimLeaseAndRetry(t *testing.T) {
 	if ds, err := out.Claim(ctxT(t), 0, time.Minute); err != nil || ds != nil {
 		t.Errorf("a claim of none: %v, %v", ds, err)
 	}
+	// Two alerts (two changes of one alert would be claimed in turn: see
+	// TestClaimKeepsChangesInOrder).
 	enqueue(t, s, []string{"webhook:http://a"}, testAlert("m", 0))
-	enqueue(t, s, []string{"webhook:http://a"}, testAlert("m", 1))
+	enqueue(t, s, []string{"webhook:http://a"}, testAlert("n", 1))
 	ds, err := out.Claim(ctxT(t), 1, time.Hour)
 	if err != nil || len(ds) != 1 {
 		t.Fatalf("claim: %v, %v", ds, err)
@@ -296,7 +298,7 @@ func TestPruneDeliveries(t *testing.T) {
 	s, conn := newStore(t)
 	out := s.Outbox()
 	for i := range 4 {
-		enqueue(t, s, []string{"webhook:http://a"}, testAlert("m", i))
+		enqueue(t, s, []string{"webhook:http://a"}, testAlert(fmt.Sprintf("m%d", i), i))
 	}
 	ds, err := out.Claim(ctxT(t), 3, time.Minute)
 	if err != nil || len(ds) != 3 {
@@ -326,7 +328,7 @@ func TestPruneDeliveries(t *testing.T) {
 	if err != nil || n != 2 {
 		t.Fatalf("pruned %d (%v), want 2", n, err)
 	}
-	rows, err := s.Deliveries(ctxT(t), "m", 0)
+	rows, err := s.Deliveries(ctxT(t), "", 0)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -336,5 +338,46 @@ func TestPruneDeliveries(t *testing.T) {
 	}
 	if len(left) != 2 || !slices.Contains(left, recent) || slices.Contains(left, oldDelivered) || slices.Contains(left, oldAbandoned) {
 		t.Errorf("left %v", left)
+	}
+}
+
+// TestClaimKeepsChangesInOrder: a resolution queued behind its firing for
+// the same receiver is not claimed while the firing waits for a retry;
+// another receiver's and another alert's deliveries are not held up.
+func TestClaimKeepsChangesInOrder(t *testing.T) {
+	t.Parallel()
+	s, _ := newStore(t)
+	firing := testAlert("m", 0)
+	resolved := firing
+	resolved.State, resolved.EndsAt, resolved.ChangedAt = alerts.StateResolved, t0.Add(time.Hour), t0.Add(time.Hour)
+	other := testAlert("n", 1)
+	enqueue(t, s, []string{"webhook:http://a"}, firing)
+	enqueue(t, s, []string{"webhook:http://a", "webhook:http://b"}, resolved)
+	enqueue(t, s, []string{"webhook:http://a"}, other)
+	ob := s.Outbox()
+	got, err := ob.Claim(ctxT(t), 10, time.Minute)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var names []string
+	for _, d := range got {
+		names = append(names, d.Alert.Model+"/"+string(d.Alert.State)+"@"+d.Receiver)
+	}
+	slices.Sort(names)
+	want := []string{"m/firing@webhook:http://a", "m/resolved@webhook:http://b", "n/firing@webhook:http://a"}
+	if !slices.Equal(names, want) {
+		t.Fatalf("claimed %v, want %v", names, want)
+	}
+	// The firing fails and waits; its resolution still may not pass it.
+	for _, d := range got {
+		if d.Alert.Model == "m" && d.Receiver == "webhook:http://a" {
+			if err := ob.Retry(ctxT(t), d.ID, time.Now().Add(-time.Second), "503"); err != nil {
+				t.Fatal(err)
+			}
+		}
+	}
+	got, err = ob.Claim(ctxT(t), 10, time.Minute)
+	if err != nil || len(got) != 1 || got[0].Alert.State != alerts.StateFiring {
+		t.Fatalf("after the retry: claimed %+v (%v), want only the firing", got, err)
 	}
 }

@@ -58,7 +58,7 @@ charts.ticks = function (lo, hi, n) {
 
 charts.tickText = function (v) {
   const a = Math.abs(v);
-  if (a !== 0 && (a >= 1e5 || a < 1e-3)) return v.toExponential(1);
+  if (a !== 0 && (a >= 1e6 || a < 1e-4)) return v.toExponential(1);
   return String(Number(v.toPrecision(6)));
 };
 
@@ -94,10 +94,12 @@ charts.area = function (xs, lo, hi, sx, sy) {
 
 charts.axisY = function (g, sy, x0, x1, n, label, fmt) {
   const [lo, hi] = sy.domain;
-  for (const t of charts.ticks(lo, hi, n)) {
+  const ticks = charts.ticks(lo, hi, n);
+  const step = ticks.length > 1 ? ticks[1] - ticks[0] : 1;
+  for (const t of ticks) {
     const y = sy(t);
     g.append(cw.svg("line", { class: "gridline", x1: x0, x2: x1, y1: y, y2: y }));
-    g.append(cw.svg("text", { class: "tick", x: x0 - 5, y: y + 3.5, "text-anchor": "end" }, (fmt || charts.tickText)(t)));
+    g.append(cw.svg("text", { class: "tick", x: x0 - 5, y: y + 3.5, "text-anchor": "end" }, (fmt || charts.tickText)(t, step)));
   }
   if (label) {
     const mid = (sy.range[0] + sy.range[1]) / 2;
@@ -127,8 +129,8 @@ charts.curve = function (opts) {
   const R = 12;
   const top = 8;
   const mainH = opts.diff ? 176 : 214;
-  const diffTop = top + mainH + 12;
-  const diffH = opts.diff ? 62 : 0;
+  const diffTop = top + mainH + 18;
+  const diffH = opts.diff ? 76 : 0;
   const stripTop = (opts.diff ? diffTop + diffH : top + mainH) + 8;
   const stripH = 18;
   const axisY = stripTop + stripH + 2;
@@ -141,13 +143,16 @@ charts.curve = function (opts) {
   const yext = charts.pad(charts.extent(opts.bands.map((b) => [b.lo, b.hi]), opts.lines.map((l) => l.y)), 0.06);
   const sy = charts.scale(yext[0], yext[1], top + mainH, top);
 
-  // Where the shift is outside the band: shaded across both panels.
-  const bottomEdge = opts.diff ? diffTop + diffH : top + mainH;
+  // Where the shift is outside the band: shaded lightly in the main
+  // panel, more strongly in the difference panel, and marked on the axis.
   for (const [a, b] of opts.outside || []) {
     const x0 = sx(Math.max(a, sx.domain[0]));
     const x1 = sx(Math.min(b, sx.domain[1]));
-    svg.append(cw.svg("rect", { class: "outside", x: x0, y: top, width: Math.max(1.5, x1 - x0), height: bottomEdge - top },
-      cw.svg("title", null, "outside the band: " + cw.fmt(a) + " to " + cw.fmt(b))));
+    const tip = () => cw.svg("title", null, "outside the band: " + cw.fmt(a) + " to " + cw.fmt(b));
+    svg.append(cw.svg("rect", { class: "outside", x: x0, y: top, width: Math.max(1.5, x1 - x0), height: mainH }, tip()));
+    if (opts.diff) {
+      svg.append(cw.svg("rect", { class: "outside outside-diff", x: x0, y: diffTop, width: Math.max(1.5, x1 - x0), height: diffH }, tip()));
+    }
   }
 
   const g = cw.svg("g");
@@ -175,7 +180,7 @@ charts.curve = function (opts) {
     }
     gd.append(cw.svg("path", { class: "series series-diff", d: charts.line(opts.x, d.y, sx, sd) }));
     gd.append(cw.svg("rect", { class: "frame", x: L, y: diffTop, width: W - R - L, height: diffH }));
-    gd.append(cw.svg("text", { class: "panel-label", x: L + 5, y: diffTop + 11 }, "difference (current − reference)"));
+    gd.append(cw.svg("text", { class: "panel-label", x: L, y: diffTop - 4 }, "difference, current − reference"));
   }
 
   // The data strip: a histogram of row counts when the fit recorded them,
@@ -202,6 +207,7 @@ charts.curve = function (opts) {
         cw.svg("title", null, r.label + ": " + cw.fmt(r.lo) + " to " + cw.fmt(r.hi))));
     });
   }
+  if (gs.childNodes.length) gs.append(cw.svg("text", { class: "tick", x: L - 5, y: stripTop + stripH / 2 + 3.5, "text-anchor": "end" }, "data"));
   gs.append(cw.svg("line", { class: "axis", x1: L, x2: W - R, y1: axisY, y2: axisY }));
   charts.axisX(gs, sx, axisY, 6);
   svg.append(cw.svg("text", { class: "axis-label", x: (L + W - R) / 2, y: H - 3, "text-anchor": "middle" }, opts.xLabel));
@@ -304,11 +310,12 @@ charts.lines = function (opts) {
   const ts = [];
   const vs = [];
   for (const s of opts.series) for (const p of s.pts) { ts.push(p.t); vs.push(p.v); }
-  for (const m of opts.marks || []) ts.push(m.t);
   if (!ts.length) {
-    svg.append(cw.svg("text", { class: "muted-text", x: L, y: top + 30 }, opts.empty || "nothing to show yet"));
+    svg.setAttribute("viewBox", "0 0 " + W + " 40");
+    svg.append(cw.svg("text", { class: "muted-text", x: L, y: 24 }, opts.empty || "nothing to show yet"));
     return svg;
   }
+  for (const m of opts.marks || []) ts.push(m.t);
   let [t0, t1] = charts.extent(ts);
   if (t1 === t0) { t0 -= 43200e3; t1 += 43200e3; }
   let yext = charts.extent(vs, opts.ref === null || opts.ref === undefined ? [] : [opts.ref]);
@@ -339,7 +346,7 @@ charts.lines = function (opts) {
   svg.append(cw.svg("rect", { class: "frame", x: L, y: top, width: W - R - L, height: h }));
   // Time axis: days.
   const span = t1 - t0;
-  const n = 6;
+  const n = span > 3 * 86400e3 ? 6 : 3;
   for (let k = 0; k <= n; k++) {
     const t = t0 + (span * k) / n;
     const x = sx(t);

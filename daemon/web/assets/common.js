@@ -116,6 +116,12 @@ cw.fmt = function (v, digits) {
   return Number(v.toPrecision(digits)).toLocaleString("en", { maximumFractionDigits: 6 });
 };
 
+// score formats a shift score.
+cw.score = function (v) {
+  if (v === null || v === undefined || !isFinite(v)) return "–";
+  return v >= 100 ? v.toFixed(0) : v >= 10 ? v.toFixed(1) : v.toFixed(2);
+};
+
 cw.pct = function (v) {
   if (v === null || v === undefined || !isFinite(v)) return "–";
   return (100 * v).toFixed(1) + "%";

@@ -56,7 +56,7 @@
       scoreCell.append(cw.el("span", { class: "muted" }, "–"));
     } else {
       scoreCell.append(cw.el("span", { class: "score" + (score > 1 ? " over" : ""), title: c && c.worst_term ? "worst term: " + c.worst_term : "" },
-        cw.fmt(score, 2)), " ", scoreBar(score));
+        cw.score(score)), " ", scoreBar(score));
       if (c && c.worst_term) scoreCell.append(cw.el("div", { class: "sub" }, c.worst_term));
     }
     const alertsCell = cw.el("td");

@@ -45,7 +45,7 @@
       ? (m.baseline_fit_id ? "baseline · fit " + m.baseline_fit_id : "baseline (none pinned yet)")
       : "the previous fit");
     const c = m.latest_comparison;
-    fact(dl, "Worst shift score", c ? [cw.el("span", { class: "score" + (c.worst_score > 1 ? " over" : "") }, cw.fmt(c.worst_score, 2)),
+    fact(dl, "Worst shift score", c ? [cw.el("span", { class: "score" + (c.worst_score > 1 ? " over" : "") }, cw.score(c.worst_score)),
       c.worst_term ? " · " + c.worst_term : ""] : "–");
     fact(dl, "Firing alerts", String(m.firing_alerts.length) + (m.alerts_pending ? " (" + m.alerts_pending + " pending)" : ""));
     $("bar-status").textContent = m.writable ? "writes allowed" : "read-only";
@@ -87,7 +87,7 @@
       case "real but small":
         return ["small", leaves + ", but moves at most " + cw.fmt(ts.size, 2) + ", within the practical margin of " + cw.fmt(margin) + "."];
       case "stable":
-        return ["steady", "the new curve stays inside the " + pct + " band (shift score " + cw.fmt(ts.score, 2) + "; 1 is the band's edge)."];
+        return ["steady", "the new curve stays inside the " + pct + " band (shift score " + cw.score(ts.score) + "; 1 is the band's edge)."];
     }
     return ["none", "not compared" + (ts.note ? ": " + ts.note : "; the comparison's warnings say why") + "."];
   }
@@ -95,6 +95,13 @@
   function verdictLine(term, kind, text) {
     const word = { shifted: "shifted", small: "real but small", steady: "steady", none: "not compared", alone: "fitted" }[kind];
     return cw.el("p", { class: "verdict verdict-" + kind }, cw.el("strong", null, term + ": " + word), " — " + text);
+  }
+
+  // effectLabel names the curves' y axis.
+  function effectLabel(fitAns) {
+    const f = fitAns && fitAns.figures;
+    if (!f || !f.response) return "effect (link scale)";
+    return f.link === "identity" ? "effect on " + f.response : "effect on " + f.response + " (" + f.link + " scale)";
   }
 
   function curveCard(ts, refC, curC, rep) {
@@ -113,7 +120,7 @@
       const [kind, text] = curveVerdict(ts, rep.tolerance.level, rep.tolerance.practical_shift);
       card.append(verdictLine(ts.name, kind, text));
       card.append(charts.curve({
-        term: ts.name, xLabel: col, yLabel: "effect (link scale)", x: g.x,
+        term: ts.name, xLabel: col, yLabel: page.yLabel, x: g.x,
         label: ts.name + ": reference and current curve; " + text,
         bands: [{ lo: g.reference.map((r, i) => r - c * g.se[i]), hi: g.reference.map((r, i) => r + c * g.se[i]), cls: "band-ref" }],
         lines: [{ y: g.reference, cls: "series-ref" }, { y: g.candidate, cls: "series-cur" }],
@@ -126,7 +133,7 @@
       if (ts) card.append(verdictLine(ts.name, "none", curveVerdict(ts, rep.tolerance.level, rep.tolerance.practical_shift)[1]));
       else card.append(verdictLine(curC.name, "alone", "fit " + page.current + " alone, with its 95% pointwise band; no comparison yet."));
       card.append(charts.curve({
-        term: curC.name, xLabel: col, yLabel: "effect (link scale)", x: g.x,
+        term: curC.name, xLabel: col, yLabel: page.yLabel, x: g.x,
         label: curC.name + ": the current curve with its 95% band",
         bands: [{ lo: g.fit.map((f, i) => f - 1.96 * g.se[i]), hi: g.fit.map((f, i) => f + 1.96 * g.se[i]), cls: "band-cur" }],
         lines: [{ y: g.fit, cls: "series-cur" }], outside: [], diff: null, density, ranges: ranges.slice(-1),
@@ -146,6 +153,7 @@
     const box = cw.clear($("curves"));
     const drawn = [];
     const rep = comp ? comp.report : null;
+    page.yLabel = effectLabel(cur);
     const byName = (list, n) => (list || []).find((t) => t.name === n) || null;
     if (rep) {
       const level = Math.round(rep.tolerance.level * 1000) / 10 + "%";
@@ -233,7 +241,7 @@
       if (!ts) return null;
       const kind = { shifted: "shifted", "real but small": "small", stable: "steady" }[ts.verdict] || "none";
       const text = kind === "none" ? "not compared" + (ts.note ? ": " + ts.note : "") + "."
-        : "shift score " + cw.fmt(ts.score, 2) + ", largest shift " + cw.fmt(ts.size, 2) + " (adjusted p " + cw.fmt(ts.p_adjusted, 2) + ").";
+        : "shift score " + cw.score(ts.score) + ", largest shift " + cw.fmt(ts.size, 2) + " (adjusted p " + cw.fmt(ts.p_adjusted, 2) + ").";
       return verdictLine(nm, kind, text);
     };
     for (const l of (cur && cur.linear) || []) {
@@ -282,7 +290,7 @@
       name: term, color: charts.palette[k % charts.palette.length],
       pts: h.points.filter((p) => p.scores[term] !== undefined && p.scores[term] !== null).map((p) => ({
         t: t(p), v: p.scores[term], hot: p.scores[term] > 1,
-        title: "fit " + p.fit_id + " · " + cw.when(p.finished) + " · " + term + ": " + cw.fmt(p.scores[term], 3) }),
+        title: "fit " + p.fit_id + " · " + cw.when(p.finished) + " · " + term + ": " + cw.score(p.scores[term]) }),
       ),
     }));
     const fails = h.points.filter((p) => p.status === "failed").map((p) => ({ t: t(p), title: "fit " + p.fit_id + " failed · " + cw.when(p.finished) }));
@@ -299,10 +307,10 @@
       t: t(p), v: p.deviance_explained, title: "fit " + p.fit_id + " · " + cw.when(p.finished) + " · " + cw.pct(p.deviance_explained) }));
     const fig2 = cw.clear($("dev-history"));
     fig2.append(cw.el("figcaption", null, cw.el("h3", null, "Deviance explained"),
-      cw.el("span", { class: "muted small" }, h.points.length + " refits")));
+      cw.el("span", { class: "muted small" }, h.points.length + (h.points.length === 1 ? " refit" : " refits"))));
     fig2.append(charts.lines({ series: [{ name: "deviance explained", color: "#2563a8", pts: devPts }], ref: null, yLabel: "deviance explained",
-      yFmt: (v) => Math.round(v * 100) + "%", clamp: [0, 1], marks: fails, label: "Deviance explained over time", empty: "No successful refit yet." }));
-    $("sec-history").hidden = h.points.length === 0;
+      yFmt: (v, step) => (100 * v).toFixed(Math.max(0, Math.ceil(-Math.log10(step * 100) - 1e-9))) + "%", clamp: [0, 1], marks: fails, label: "Deviance explained over time", empty: "No successful refit yet." }));
+    $("sec-history").hidden = devPts.length === 0;
   }
 
   // ---- alerts ----
@@ -353,7 +361,7 @@
     if (!m.writable) return;
     const input = cw.el("input", { type: "password", id: "api-token", autocomplete: "off", spellcheck: "false" });
     input.value = sessionStorage.getItem(tokenKey) || "";
-    box.append(cw.el("div", { class: "pin-box" },
+    box.append(cw.el("form", { class: "pin-box", onsubmit: (e) => e.preventDefault() },
       cw.el("label", null, "API token ", input),
       cw.el("span", { class: "muted small" }, "Needed to pin a fit as the baseline; kept in this tab only."),
       cw.el("p", { id: "pin-msg", class: "pin-msg", role: "status" })));
@@ -452,7 +460,7 @@
     const curID = c ? c.candidate_fit_id : m.last_success ? m.last_success.id : null;
     page.current = curID;
     const [hist, al, ev, fits, comp, ref, cur] = await Promise.all([
-      cw.get(base + "/history?limit=500"),
+      cw.get(base + "/history?limit=1000"),
       cw.get(api + "/alerts?model=" + encodeURIComponent(name)),
       cw.get(base + "/alert-events?limit=15"),
       cw.get(base + "/fits?limit=20"),
@@ -462,9 +470,11 @@
     ]);
 
     if (!m.last_refit) notice("No refit has run yet: the curves appear after the first refit (schedule " + m.schedule + ").");
-    else if (m.last_refit.status === "failed") notice("The latest refit, fit " + m.last_refit.id + ", failed: " + m.last_refit.reason + ". The curves below are from the latest successful fit.", "bad");
-    else if (m.last_refit.status === "unconverged") notice("The latest refit, fit " + m.last_refit.id + ", did not converge; its curves are not trusted.", "bad");
-    if (m.last_refit && !m.last_success) notice("No refit has succeeded yet, so there are no curves to show.", "bad");
+    else if (!m.last_success) notice("No refit has succeeded yet, so there are no curves to show.", "bad");
+    else if (m.last_refit.id !== m.last_success.id) {
+      notice("The latest refit, fit " + m.last_refit.id + ", " + (m.last_refit.status === "failed" ? "failed" : "did not converge") +
+        ": the curves below are from fit " + m.last_success.id + ", the latest success.", "bad");
+    }
     if (c && m.last_success && m.last_success.id > c.candidate_fit_id) {
       notice("Fit " + m.last_success.id + " is newer than the latest comparison (fit " + c.candidate_fit_id + " vs fit " + c.reference_fit_id + ") and has not been compared; the curves below show that comparison.");
     }
