@@ -11,9 +11,22 @@ cd "$(dirname "$0")/.."
 export CURVEWATCH_TEST_DATABASE_URL=${CURVEWATCH_TEST_DATABASE_URL:-postgres://postgres@127.0.0.1:5432/test?sslmode=disable}
 export CURVEWATCH_FLEET=1
 export CURVEWATCH_FLEET_MODELS=${CURVEWATCH_FLEET_MODELS:-1000}
-out=$(go test ./daemon/ -run '^$' -bench BenchmarkFleet -benchtime 1x -timeout 2h -v 2>&1) || { printf '%s\n' "$out"; exit 1; }
-printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet-' || true
-printf '%s\n' "$out" | awk '/^BenchmarkFleet-/ {
-  for (i = 1; i <= NF; i++) m[$i] = $(i-1)
-  printf "fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core\n",
-    ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"] }'
+# One daemon, then two daemons (replicas) on the same fleet: throughput in
+# models per second, and the ratio of the two.
+run() {
+  CURVEWATCH_FLEET_REPLICAS=$1 go test ./daemon/ -run '^$' -bench BenchmarkFleet -benchtime 1x -timeout 2h -v 2>&1
+}
+declare -A rate
+for replicas in 1 ${CURVEWATCH_FLEET_MORE_REPLICAS-2}; do
+  out=$(run "$replicas") || { printf '%s\n' "$out"; exit 1; }
+  printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet-' || true
+  line=$(printf '%s\n' "$out" | awk -v r="$replicas" '/^BenchmarkFleet-/ {
+    for (i = 1; i <= NF; i++) m[$i] = $(i-1)
+    printf "%s replica(s), fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core; %.1f models/s\n",
+      r, ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"], m["models_per_s"] }')
+  echo "$line"
+  rate[$replicas]=$(printf '%s\n' "$line" | sed -E 's/.*; ([0-9.]+) models\/s$/\1/')
+done
+if [ -n "${rate[2]:-}" ]; then
+  awk -v a="${rate[1]}" -v b="${rate[2]}" 'BEGIN { printf "two replicas against one: throughput ratio %.2f (both on this machine'"'"'s cores)\n", b / a }'
+fi

@@ -20,9 +20,10 @@ import (
 
 // Fleet benchmark settings (bench/fleet.sh sets them).
 const (
-	envFleet       = "CURVEWATCH_FLEET"        // "1" runs BenchmarkFleet
-	envFleetModels = "CURVEWATCH_FLEET_MODELS" // models in the fleet (default 1000)
-	fleetRows      = 10_000                    // rows per model
+	envFleet         = "CURVEWATCH_FLEET"          // "1" runs BenchmarkFleet
+	envFleetModels   = "CURVEWATCH_FLEET_MODELS"   // models in the fleet (default 1000)
+	envFleetReplicas = "CURVEWATCH_FLEET_REPLICAS" // daemons sharing the fleet (default 1)
+	fleetRows        = 10_000                      // rows per model
 )
 
 const fleetSpec = "name: fleet\nresponse: y\nfamily: gaussian\nterms:\n  - curve: x1\n  - curve: x2\n  - curve: x3\n"
@@ -124,23 +125,40 @@ func BenchmarkFleet(b *testing.B) {
 	pureFitPerCore := pure.Seconds() / float64(cores)
 	b.Logf("pure fits: %.2f s in all, %.2f s per core", pure.Seconds(), pureFitPerCore)
 
-	// (a) The App runs the slot for every model.
+	// (a) The Apps (CURVEWATCH_FLEET_REPLICAS of them, default 1, each
+	// with a worker per core) run the slot for every model.
+	replicas := 1
+	if s := os.Getenv(envFleetReplicas); s != "" {
+		n, err := strconv.Atoi(s)
+		if err != nil || n < 1 {
+			b.Fatalf("%s=%q: want a positive integer", envFleetReplicas, s)
+		}
+		replicas = n
+	}
 	logs := &logBuffer{}
-	a, err := New(cfg, Options{Workers: cores, RetryMin: 100 * time.Millisecond, RetryMax: 500 * time.Millisecond,
-		Logger: slog.New(slog.NewTextHandler(logs, &slog.HandlerOptions{Level: slog.LevelInfo}))})
-	if err != nil {
-		b.Fatal(err)
+	var apps []*App
+	for range replicas {
+		a, err := New(cfg, Options{Workers: cores, RetryMin: 100 * time.Millisecond, RetryMax: 500 * time.Millisecond,
+			Logger: slog.New(slog.NewTextHandler(logs, &slog.HandlerOptions{Level: slog.LevelInfo}))})
+		if err != nil {
+			b.Fatal(err)
+		}
+		apps = append(apps, a)
 	}
 	b.ResetTimer()
 	started := time.Now()
-	if err := a.Start(ctx); err != nil {
-		b.Fatal(err)
+	for _, a := range apps {
+		if err := a.Start(ctx); err != nil {
+			b.Fatal(err)
+		}
 	}
 	defer func() {
 		sctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 		defer cancel()
-		if err := a.Stop(sctx); err != nil {
-			b.Errorf("stop: %v", err)
+		for _, a := range apps {
+			if err := a.Stop(sctx); err != nil {
+				b.Errorf("stop: %v", err)
+			}
 		}
 		if b.Failed() || os.Getenv("CURVEWATCH_TEST_APPLOG") != "" {
 			b.Logf("app log:\n%s", logs)
@@ -180,6 +198,8 @@ func BenchmarkFleet(b *testing.B) {
 		b.Fatalf("%d of %d fits did not succeed (first: %s)", bad, models, reason)
 	}
 	b.ReportMetric(wall, "wall_s")
+	b.ReportMetric(float64(models)/wall, "models_per_s")
+	b.ReportMetric(float64(replicas), "replicas")
 	b.ReportMetric(startupWall.Seconds(), "startup_wall_s")
 	b.ReportMetric(pureFitPerCore, "purefit_s_per_core")
 	b.ReportMetric(wall/pureFitPerCore, "wall_over_purefit")

@@ -26,7 +26,9 @@ type env struct {
 	t0    time.Time
 }
 
-func newEnv(t *testing.T) *env {
+func newEnv(t *testing.T) *env { return newEnvTB(t) }
+
+func newEnvTB(t testing.TB) *env {
 	t.Helper()
 	ctx := context.Background()
 	url, schema := pgtest.Schema(t)

@@ -95,6 +95,10 @@ func TestAPIReads(t *testing.T) {
 				if n := len(g["x"].([]any)); n == 0 || len(g["fit"].([]any)) != n || len(g["se"].([]any)) != n {
 					t.Errorf("curve %s: grid lengths", c["name"])
 				}
+				d, dx := g["density"].([]any), g["density_x"].([]any)
+				if len(d) == 0 || len(d) != len(dx) {
+					t.Errorf("curve %s: density %d bins, centres %d", c["name"], len(d), len(dx))
+				}
 			}
 			if fmt.Sprint(names) != "[water_temp flow]" {
 				t.Errorf("curves %v", names)

@@ -1,7 +1,6 @@
 package web
 
 import (
-	"encoding/json"
 	"errors"
 	"net/http"
 	"slices"
@@ -166,12 +165,14 @@ type figures struct {
 }
 
 // curveGrid is a curve tabulated on its grid. Density, when the fit
-// document records it, counts the fitted rows near each grid point.
+// document records it, counts the fitted rows in equal bins along the
+// axis, centred at DensityX.
 type curveGrid struct {
-	X       []float64 `json:"x"`
-	Fit     []float64 `json:"fit"`
-	SE      []float64 `json:"se"`
-	Density []float64 `json:"density"`
+	X        []float64 `json:"x"`
+	Fit      []float64 `json:"fit"`
+	SE       []float64 `json:"se"`
+	Density  []float64 `json:"density"`
+	DensityX []float64 `json:"density_x"`
 }
 
 type curve struct {
@@ -288,7 +289,8 @@ func fillFit(ans *fitAnswer, d *fit.Document) {
 				c.Range = &t.Range[0]
 			}
 			if g := t.Grid; g != nil {
-				c.Grid = &curveGrid{X: g.X, Fit: g.Fit, SE: g.SE, Density: density(g)}
+				c.Grid = &curveGrid{X: g.X, Fit: g.Fit, SE: g.SE}
+				c.Grid.Density, c.Grid.DensityX = density(g)
 			}
 			ans.Curves = append(ans.Curves, c)
 		case fit.Surface:
@@ -328,22 +330,20 @@ func fillFit(ans *fitAnswer, d *fit.Document) {
 	}
 }
 
-// density returns the grid's row counts when the document has them (a
-// "density" member of the grid, which older documents lack), else nil.
-// It goes through JSON so that it works whether or not fit.CurveGrid has
-// the field.
-func density(g *fit.CurveGrid) []float64 {
-	b, err := json.Marshal(g)
-	if err != nil {
-		return nil
+// density returns the grid's row counts per bin and the bins' centres,
+// or nils when the document has none (fits recorded before the engine
+// kept them).
+func density(g *fit.CurveGrid) (counts, centres []float64) {
+	k := len(g.Density)
+	if k == 0 || len(g.X) < 2 {
+		return nil, nil
 	}
-	var d struct {
-		Density []float64 `json:"density"`
+	lo, hi := g.X[0], g.X[len(g.X)-1]
+	centres = make([]float64, k)
+	for i := range centres {
+		centres[i] = lo + (hi-lo)*(float64(i)+0.5)/float64(k)
 	}
-	if json.Unmarshal(b, &d) != nil || len(d.Density) != len(g.X) {
-		return nil
-	}
-	return d.Density
+	return g.Density, centres
 }
 
 func nonNil[T any](s []T) []T {

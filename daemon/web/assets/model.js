@@ -110,7 +110,7 @@
     const col = (curC && curC.columns[0]) || (refC && refC.columns[0]) || title;
     card.append(cw.el("figcaption", null, cw.el("h3", null, title),
       cw.el("span", { class: "muted small" }, curC && curC.edf !== null ? "edf " + cw.fmt(curC.edf, 3) : "")));
-    const density = curC && curC.grid && curC.grid.density ? { x: curC.grid.x, counts: curC.grid.density } : null;
+    const density = curC && curC.grid && curC.grid.density ? { x: curC.grid.density_x || curC.grid.x, counts: curC.grid.density } : null;
     const ranges = [];
     if (refC && refC.range) ranges.push({ lo: refC.range[0], hi: refC.range[1], cls: "range-ref", label: "reference fit's data" });
     if (curC && curC.range) ranges.push({ lo: curC.range[0], hi: curC.range[1], cls: "range-cur", label: "current fit's data" });
