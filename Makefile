@@ -24,6 +24,8 @@ fuzz: ## run each parser's fuzzer for 30 s
 	go test ./fit/ -run '^$$' -fuzz FuzzParseSpec -fuzztime 30s
 	go test ./fit/csvsource/ -run '^$$' -fuzz FuzzScan -fuzztime 30s
 	go test ./daemon/config/ -run '^$$' -fuzz FuzzParseConfig -fuzztime 30s
+	go test ./alerts/webhook/ -run '^$$' -fuzz FuzzVerify -fuzztime 30s
+	go test ./alerts/webhook/ -run '^$$' -fuzz FuzzParseSignature -fuzztime 30s
 
 references: ## regenerate the outside reference values (needs python3-scipy, python3-statsmodels)
 	/usr/bin/python3 testdata/reference/smoothing_spline/smoothing_spline.py
@@ -31,6 +33,7 @@ references: ## regenerate the outside reference values (needs python3-scipy, pyt
 	/usr/bin/python3 testdata/reference/dobson/dobson.py
 	/usr/bin/python3 testdata/reference/longley/longley.py
 	/usr/bin/python3 testdata/reference/nested/nested.py
+	/usr/bin/python3 testdata/reference/fdr/make_bh.py
 
 ci: ## what CI runs
 	.ci/run
