@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"runtime"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -93,7 +94,8 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 	}
 
 	d := a.alerting()
-	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log}
+	// The refits at once share the cores: each fit gets its share.
+	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log, FitWorkers: max(1, runtime.NumCPU()/a.opts.Workers)}
 	if d != nil {
 		runner.OnRecord = d.alerter.onRecord
 	}

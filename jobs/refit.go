@@ -49,6 +49,10 @@ type Runner struct {
 	StatementTimeout time.Duration
 	// Now gives the time for manual runs (default time.Now).
 	Now func() time.Time
+	// FitWorkers is how many goroutines one fit uses (default: one per
+	// CPU). A daemon that runs a refit per CPU sets 1, so that concurrent
+	// refits do not contend for the cores.
+	FitWorkers int
 	// OnRecord, when set, runs inside the transaction that records the
 	// refit (a fit or a failure), after the rows are written and
 	// Result.FitID is set: the daemon updates the model's alert states
@@ -151,7 +155,7 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 	}
 	// The rows stay open (one snapshot) for the predictive check below.
 	defer rows.Close()
-	doc, fitErr := fit.Fit(ctx, m.Spec, rows, fit.Options{TimeColumn: m.Time})
+	doc, fitErr := fit.Fit(ctx, m.Spec, rows, fit.Options{TimeColumn: m.Time, Workers: r.FitWorkers})
 	newest := rows.Newest
 	res.Newest = newest
 	if fitErr != nil && !errors.Is(fitErr, fit.ErrNotConverged) {

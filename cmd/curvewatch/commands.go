@@ -26,6 +26,7 @@ type env struct {
 
 // commands lists the subcommands in the order `curvewatch help` shows them.
 var commands = []command{
+	{name: "demo", summary: "watch invented river sondes drift: a throwaway database, the daemon, alerts", run: runDemo},
 	{name: "fit", summary: "fit a model spec to CSV rows; writes the fit document, prints a summary", run: runFit},
 	{name: "predict", summary: "evaluate a fit document on new CSV rows; adds link, link_se, response", run: runPredict},
 	{name: "compare", summary: "compare a candidate fit with a reference fit of the same model; exit 3 on a breach", run: runCompare},

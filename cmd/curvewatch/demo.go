@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"crypto/rand"
 	"encoding/hex"
@@ -104,18 +105,20 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 func demo(ctx context.Context, e *env, args []string, deps demoDeps) error {
 	var a demoArgs
 	fl := newFlags("demo", demoHelp)
-	fl.Duration(&a.runFor, "for", "DURATION", 0, "stop after this long (0: run until Ctrl-C)")
-	fl.Int(&a.speed, "speed", "N", 5, "simulated hours per second of wall time (5: one simulated hour every 0.2 s)")
+	fl.Duration(&a.runFor, "for", "DURATION", 0, "how long the live feed runs before the demo stops by itself; 0s runs until Ctrl-C")
+	fl.Int(&a.speed, "speed", "N", 5, "simulated hours per second of wall time; 5 is one simulated hour every 0.2 s")
 	fl.Duration(&a.every, "every", "DURATION", 5*time.Second, "the refit schedule (@every, whole seconds)")
-	fl.Duration(&a.driftAfter, "drift-after", "DURATION", 20*time.Second, "when S07's sonde starts to foul, after the live feed starts (0: never)")
-	fl.String(&a.listen, "listen", "ADDR", "127.0.0.1:0", "the daemon's address (dashboard, API, /metrics); port 0 picks a free one")
-	fl.String(&a.schema, "schema", "NAME", "curvewatch_demo", "the daemon's schema; the source table goes in NAME_river")
+	fl.Duration(&a.driftAfter, "drift-after", "DURATION", 20*time.Second, "how long into the live feed S07's sonde starts to foul; 0s never")
+	fl.Choice(&a.listen, "listen", "ADDR", "the daemon's address: dashboard, API, /metrics (default 127.0.0.1:0; port 0 picks a free port)")
+	fl.Choice(&a.schema, "schema", "NAME", "the daemon's schema; the source table goes in NAME_river (default curvewatch_demo)")
 	fl.Int(&a.seed, "seed", "N", 1, "the seed of the simulated readings' noise")
 	fl.Bool(&a.keep, "keep", "keep the demo's schemas and config folder (a throwaway cluster is removed anyway)")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
 	}
 	a.verbose = fl.verbose
+	a.listen = cmp.Or(a.listen, "127.0.0.1:0")
+	a.schema = cmp.Or(a.schema, "curvewatch_demo")
 	switch {
 	case a.runFor < 0:
 		return fl.usageError("--for must be 0 (until Ctrl-C) or more, not %s", a.runFor)
@@ -138,11 +141,18 @@ func demo(ctx context.Context, e *env, args []string, deps demoDeps) error {
 	log := slog.New(slog.NewTextHandler(e.stderr, &slog.HandlerOptions{Level: level}))
 	d := &demoRun{args: a, deps: deps, out: &demoOut{w: e.stdout, now: time.Now}, log: log}
 	err := d.run(ctx)
+	if err != nil && ctx.Err() != nil {
+		// Ctrl-C before the demo got going (the step it was in failed for
+		// that reason): a stop, not a failure.
+		d.log.Debug("interrupted", "error", err)
+		d.out.line("stopping: interrupted before the daemon was ready")
+		err = nil
+	}
 	if cerr := d.cleanup(context.WithoutCancel(ctx)); cerr != nil {
 		err = errors.Join(err, cerr)
 	}
 	if err != nil && d.db != nil {
-		err = errors.New(scrub(err.Error(), d.db.dsn))
+		err = errors.New(scrub(err.Error(), dsnSecrets(d.db.dsn)...))
 	}
 	return err
 }
@@ -165,9 +175,12 @@ type demoRun struct {
 	backfilled int64
 	// baseline is the baseline fit's id.
 	baseline int64
+	// recapWanted is set when the demo ran to its end: the cleanups print
+	// the recap once the daemon and the feed have stopped.
+	recapWanted bool
 }
 
-func (d *demoRun) defer_(fn func(context.Context) error) { d.cleanups = append(d.cleanups, fn) }
+func (d *demoRun) onExit(fn func(context.Context) error) { d.cleanups = append(d.cleanups, fn) }
 
 // cleanup runs the cleanups last-first.
 func (d *demoRun) cleanup(ctx context.Context) error {
@@ -190,12 +203,12 @@ func (d *demoRun) run(ctx context.Context) error {
 	}
 	d.db = db
 	if db.cluster != nil {
-		d.defer_(func(context.Context) error { return db.cluster.Stop() })
+		d.onExit(func(context.Context) error { return db.cluster.Stop() })
 	}
 	if d.pool, err = pgxpool.New(ctx, db.dsn); err != nil {
 		return fmt.Errorf("connect to the database: %w", err)
 	}
-	d.defer_(func(context.Context) error { d.pool.Close(); return nil })
+	d.onExit(func(context.Context) error { d.pool.Close(); return nil })
 	pctx, cancel := context.WithTimeout(ctx, 15*time.Second)
 	err = d.pool.Ping(pctx)
 	cancel()
@@ -208,9 +221,10 @@ func (d *demoRun) run(ctx context.Context) error {
 	if err := createSchemas(ctx, d.pool, a.schema, srcSchema); err != nil {
 		return err
 	}
-	d.defer_(func(ctx context.Context) error {
+	d.onExit(func(ctx context.Context) error {
 		if a.keep && db.cluster == nil {
-			d.out.text("  kept         schemas %s and %s (--keep): DROP SCHEMA %s, %s CASCADE removes them\n", a.schema, srcSchema, a.schema, srcSchema)
+			d.out.text("  kept         schemas %s and %s (--keep); remove them with\n               DROP SCHEMA %s, %s CASCADE\n",
+				a.schema, srcSchema, a.schema, srcSchema)
 			return nil
 		}
 		ctx, cancel := context.WithTimeout(ctx, demoStopTimeout)
@@ -230,7 +244,7 @@ func (d *demoRun) run(ctx context.Context) error {
 	if d.sink, err = startSink(secret, d.out, d.log); err != nil {
 		return err
 	}
-	d.defer_(func(ctx context.Context) error {
+	d.onExit(func(ctx context.Context) error {
 		ctx, cancel := context.WithTimeout(ctx, demoStopTimeout)
 		defer cancel()
 		return d.sink.stop(ctx)
@@ -244,8 +258,9 @@ func (d *demoRun) run(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("make a folder for the config: %w", err)
 	}
-	d.defer_(func(context.Context) error {
+	d.onExit(func(context.Context) error {
 		if a.keep {
+			d.out.text("  kept         the config folder %s (--keep)\n", dir)
 			return nil
 		}
 		return os.RemoveAll(dir)
@@ -274,12 +289,13 @@ func (d *demoRun) run(ctx context.Context) error {
 	// week plus the time the daemon's first windows reach back, so that
 	// the baseline (the week) and every window the daemon fits are
 	// disjoint.
-	lead := a.every + window
-	backHours := int(demoBaselineSpan/time.Hour) + int(math.Ceil((lead * time.Duration(a.speed)).Hours()))
-	clock := simClock{simAt0: demoSimStart.Add(time.Duration(backHours) * time.Hour), wallAt0: time.Now(), speed: a.speed}
+	lead := a.every + window + time.Second
+	clock := simClock{wallAt0: time.Now(), speed: a.speed}
+	backHours := int(demoBaselineSpan/time.Hour) + int(math.Ceil(clock.simSpan(lead).Hours()))
+	clock.simAt0 = demoSimStart.Add(time.Duration(backHours) * time.Hour)
 	rv := newRiver(uint64(a.seed), demoSimStart)
 	if a.driftAfter > 0 {
-		rv.foulAt = clock.simAt0.Add(a.driftAfter * time.Duration(a.speed))
+		rv.foulAt = clock.simAt0.Add(clock.simSpan(a.driftAfter))
 	}
 	d.header(db, cfgPath, listen, window)
 	n, err := writeHours(ctx, d.pool, table, rv, clock, demoSimStart, backHours)
@@ -289,23 +305,27 @@ func (d *demoRun) run(ctx context.Context) error {
 	d.backfilled = n
 	d.out.line("back-filled %s readings, simulated %s to %s", count(int(n)),
 		demoSimStart.Format(simFormat), clock.simAt0.Format(simFormat))
-	d.feed = &feeder{pool: d.pool, table: table, river: rv, clock: clock, out: d.out}
-	d.feed.start(ctx)
-	d.defer_(func(context.Context) error { d.feed.stop(); return nil })
-	d.started = clock.wallAt0
-
 	// The baseline: the back-filled week, ending a second before any
-	// window the daemon will fit.
+	// window the daemon will fit (the first reaches back a schedule
+	// interval and a window from now).
 	if err := migrations.Up(ctx, db.dsn, a.schema); err != nil {
 		return err
 	}
 	if d.store, err = history.Open(ctx, db.dsn, a.schema); err != nil {
 		return err
 	}
-	d.defer_(func(context.Context) error { d.store.Close(); return nil })
-	if err := d.fitBaseline(ctx, m, clock.wallAt0.Add(-lead-time.Second), clock.wall(demoSimStart)); err != nil {
+	d.onExit(func(context.Context) error { d.store.Close(); return nil })
+	if err := d.fitBaseline(ctx, m, clock.wallAt0.Add(-lead), clock.wall(demoSimStart)); err != nil {
 		return err
 	}
+	d.onExit(d.recap)
+
+	// The live feed: it catches up on the hours simulated while the
+	// baseline was fitted, before the daemon reads any of them.
+	d.feed = &feeder{pool: d.pool, table: table, river: rv, clock: clock, out: d.out}
+	d.feed.start(ctx)
+	d.onExit(func(context.Context) error { d.feed.stop(); return nil })
+	d.started = clock.wallAt0
 
 	// The daemon.
 	app, err := daemon.New(cfg, daemon.Options{Logger: d.log, Workers: 2, JobTimeout: time.Minute, SoftStop: 2 * time.Second})
@@ -315,7 +335,7 @@ func (d *demoRun) run(ctx context.Context) error {
 	if err := app.Start(ctx); err != nil {
 		return err
 	}
-	d.defer_(func(ctx context.Context) error {
+	d.onExit(func(ctx context.Context) error {
 		ctx, cancel := context.WithTimeout(ctx, demoStopTimeout)
 		defer cancel()
 		return app.Stop(ctx)
@@ -323,7 +343,8 @@ func (d *demoRun) run(ctx context.Context) error {
 	select {
 	case <-app.Ready():
 	case <-ctx.Done():
-		return d.recap(context.WithoutCancel(ctx))
+		d.recapWanted = true
+		return nil
 	}
 	d.out.line("daemon ready: %s refits %s every %s", dashboardURL(app.Addr().String()), demoModel, a.every)
 	return d.watch(ctx)
@@ -356,29 +377,31 @@ func (d *demoRun) header(db *demoDB, cfgPath, listen string, window time.Duratio
 	a := d.args
 	drift := "never (--drift-after 0)"
 	if a.driftAfter > 0 {
-		drift = a.driftAfter.String() + " into the live feed"
+		drift = a.driftAfter.String() + " into the feed"
 	}
-	d.out.text(`
-  database     %s
+	if db.cluster != nil {
+		d.out.text("\n") // after the line saying that the cluster starts
+	}
+	d.out.text(`  database     %s
   config       %s
   dashboard    %s
   webhook      %s (signed; the demo's sink checks each alert)
   time         one simulated hour every %s; S07's sonde fouls %s
-  refits       %s every %s on the latest %s of readings, compared with a
-               baseline fitted on a back-filled week
+  refits       %s every %s, on the readings of the latest %s,
+               compared with a baseline fitted on a back-filled week
 
 Caution: what follows are statistical signals for people to review, not a
 compliance determination.
 
-`, db.about, cfgPath, dashboardURL(listen), d.sink.url(), time.Hour/time.Duration(a.speed), drift,
+`, db.about, cfgPath, dashboardURL(listen), d.sink.url(), time.Second/time.Duration(a.speed), drift,
 		demoModel, a.every, window)
 }
 
 // demoWindow is each refit's window: at least demoWindowSpan of simulated
 // time, in whole seconds, and at least one schedule interval.
 func demoWindow(every time.Duration, speed int) time.Duration {
-	w := time.Duration(math.Ceil(float64(demoWindowSpan)/float64(speed)/float64(time.Second))) * time.Second
-	return max(w, every)
+	wall := demoWindowSpan / time.Duration(3600*speed)
+	return max((wall + time.Second - 1).Truncate(time.Second), every)
 }
 
 // resolveListen turns port 0 into a free port, so that the config and the
@@ -408,6 +431,16 @@ func dashboardURL(addr string) string {
 		host = "127.0.0.1"
 	}
 	return "http://" + net.JoinHostPort(host, port) + "/"
+}
+
+// dsnSecrets are what error messages must not show of a connection
+// string: all of it, and its password.
+func dsnSecrets(dsn string) []string {
+	secrets := []string{dsn}
+	if cfg, err := pgx.ParseConfig(dsn); err == nil && cfg.Password != "" {
+		secrets = append(secrets, cfg.Password)
+	}
+	return secrets
 }
 
 func randomHex(n int) (string, error) {

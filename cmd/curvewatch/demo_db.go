@@ -112,7 +112,8 @@ func createReadings(ctx context.Context, pool *pgxpool.Pool, table pgx.Identifie
 
 // simClock maps simulated time onto the wall clock: simulated instant
 // simAt0 is wall instant wallAt0, and speed simulated hours pass per wall
-// second. The daemon windows on received_at, the wall-clock side.
+// second (a simulated hour takes 1/speed s). The daemon windows on
+// received_at, the wall-clock side.
 type simClock struct {
 	simAt0, wallAt0 time.Time
 	speed           int
@@ -120,11 +121,11 @@ type simClock struct {
 
 // wall returns the wall-clock instant of simulated instant sim.
 func (c simClock) wall(sim time.Time) time.Time {
-	return c.wallAt0.Add(sim.Sub(c.simAt0) / time.Duration(c.speed))
+	return c.wallAt0.Add(sim.Sub(c.simAt0) / time.Duration(3600*c.speed))
 }
 
-// tick is the wall time one simulated hour takes.
-func (c simClock) tick() time.Duration { return time.Hour / time.Duration(c.speed) }
+// simSpan is the simulated time that passes in wall time d.
+func (c simClock) simSpan(d time.Duration) time.Duration { return d * time.Duration(3600*c.speed) }
 
 // writeHours writes the readings of simulated hours [from, from+n) to the
 // table with COPY and returns how many rows it wrote.

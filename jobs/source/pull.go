@@ -35,7 +35,16 @@ type Query struct {
 	StatementTimeout time.Duration
 	// BlockRows is the rows per block (default 4096).
 	BlockRows int
+	// CacheRows is the most rows kept in memory after the first pass, so
+	// that a fit's later passes over a small window read memory instead of
+	// the database (default 250,000 rows, a few megabytes per column; a
+	// negative value turns the cache off). A larger window streams every
+	// pass, so memory stays flat however large the window.
+	CacheRows int
 }
+
+// DefaultCacheRows is Query.CacheRows's default.
+const DefaultCacheRows = 250_000
 
 // Rows is a fit.Source over one time window of a table, read inside one
 // REPEATABLE READ, READ ONLY transaction: every pass of a fit sees the same
@@ -47,6 +56,10 @@ type Rows struct {
 	columns []string
 	tx      pgx.Tx
 	conn    *pgxpool.Conn
+	// cache holds the blocks of a completed pass, with the columns it
+	// read (nil when there is none, or the window was too large).
+	cache     []*fit.Block
+	cacheNeed fit.Need
 	// Newest is the newest time value in the window after Open (zero when
 	// the window is empty): the refit's watermark.
 	Newest time.Time
@@ -66,6 +79,9 @@ func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
 	}
 	if q.BlockRows <= 0 {
 		q.BlockRows = 4096
+	}
+	if q.CacheRows == 0 {
+		q.CacheRows = DefaultCacheRows
 	}
 	conn, err := pool.Acquire(ctx)
 	if err != nil {
@@ -123,6 +139,7 @@ func (r *Rows) Close() {
 		_ = r.tx.Rollback(context.Background())
 		r.tx = nil
 	}
+	r.cache = nil
 	if r.conn != nil {
 		r.conn.Release()
 		r.conn = nil
@@ -140,6 +157,39 @@ func (r *Rows) Columns() []string { return append([]string(nil), r.columns...) }
 func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) error) error {
 	if r.tx == nil {
 		return errors.New("source: Scan after Close")
+	}
+	if r.cache != nil && covers(r.cacheNeed, need) {
+		for _, b := range r.cache {
+			if err := fn(b); err != nil {
+				return err
+			}
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	// This pass fills the cache while the window fits in it.
+	var cache []*fit.Block
+	caching, cached := r.q.CacheRows > 0, 0
+	keep := func(b *fit.Block) {
+		if !caching {
+			return
+		}
+		cached += b.Rows
+		if cached > r.q.CacheRows {
+			caching, cache = false, nil
+			return
+		}
+		c := &fit.Block{Rows: b.Rows, Line: append([]int64(nil), b.Line...),
+			Numeric: make(map[string][]float64, len(b.Numeric)), Text: make(map[string][]string, len(b.Text))}
+		for k, v := range b.Numeric {
+			c.Numeric[k] = append([]float64(nil), v...)
+		}
+		for k, v := range b.Text {
+			c.Text[k] = append([]string(nil), v...)
+		}
+		cache = append(cache, c)
 	}
 	var sel []string
 	for _, c := range need.Numeric {
@@ -194,6 +244,7 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 		for i, c := range need.Text {
 			b.Text[c] = txt[i]
 		}
+		keep(b)
 		if err := fn(b); err != nil {
 			return err
 		}
@@ -237,5 +288,35 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 	if err := rows.Err(); err != nil {
 		return fmt.Errorf("source %s: %w", r.q.Table, err)
 	}
-	return flush()
+	if err := flush(); err != nil {
+		return err
+	}
+	if caching {
+		r.cache, r.cacheNeed = cache, need
+		if r.cache == nil {
+			r.cache = []*fit.Block{} // an empty window, cached
+		}
+	}
+	return nil
+}
+
+// covers reports whether the columns of have include all of want's.
+func covers(have, want fit.Need) bool {
+	return subset(want.Numeric, have.Numeric) && subset(want.Text, have.Text)
+}
+
+func subset(want, have []string) bool {
+	for _, w := range want {
+		found := false
+		for _, h := range have {
+			if h == w {
+				found = true
+				break
+			}
+		}
+		if !found {
+			return false
+		}
+	}
+	return true
 }

@@ -2,7 +2,9 @@ package source_test
 
 import (
 	"context"
+	"fmt"
 	"math"
+	"strings"
 	"testing"
 	"time"
 
@@ -103,5 +105,83 @@ func TestRowsStreamAWindowInOneSnapshot(t *testing.T) {
 	}
 	if doc.Data.RowsRead != 150 || doc.Data.Dropped["flow"] == 0 || doc.Data.Window == nil {
 		t.Errorf("data record %+v", doc.Data)
+	}
+}
+
+// A window that fits in CacheRows is read from the database once: later
+// passes (and passes over fewer columns) are served from memory, row for
+// row the same. A window larger than the cache, or a cache turned off,
+// streams every pass.
+func TestRowsCacheSmallWindows(t *testing.T) {
+	ctx := context.Background()
+	url, _ := pgtest.Schema(t)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pool.Close()
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	readings(t, ctx, pool, 300, t0)
+	need := fit.Need{Numeric: []string{"observed_at", "water_temp", "flow"}, Text: []string{"site"}}
+	read := func(rows *source.Rows, need fit.Need) []string {
+		var out []string
+		err := rows.Scan(ctx, need, func(b *fit.Block) error {
+			for r := 0; r < b.Rows; r++ {
+				line := fmt.Sprint(b.Line[r])
+				for _, c := range need.Numeric {
+					line += fmt.Sprintf(" %v", b.Numeric[c][r])
+				}
+				for _, c := range need.Text {
+					line += " " + b.Text[c][r]
+				}
+				out = append(out, line)
+			}
+			return nil
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return out
+	}
+	tests := []struct {
+		name       string
+		cacheRows  int
+		wantCached bool
+	}{
+		{"default cache", 0, true},
+		{"window larger than the cache", 100, false},
+		{"cache off", -1, false},
+	}
+	var want []string
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			rows, err := source.Open(ctx, pool, source.Query{Table: source.Table{Name: "sonde_readings"}, Time: "observed_at",
+				From: t0, To: t0.Add(300 * time.Hour), BlockRows: 64, CacheRows: tc.cacheRows})
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer rows.Close()
+			first := read(rows, need)
+			if got := rows.CachedBlocks() >= 0; got != tc.wantCached {
+				t.Fatalf("cached %v, want %v", got, tc.wantCached)
+			}
+			if len(first) != 300 {
+				t.Fatalf("%d rows, want 300", len(first))
+			}
+			if want == nil {
+				want = first
+			}
+			for pass, got := range [][]string{first, read(rows, need)} {
+				if fmt.Sprint(got) != fmt.Sprint(want) {
+					t.Errorf("pass %d differs from an uncached read", pass+1)
+				}
+			}
+			// Fewer columns: from the cache too, with the same values.
+			fewer := read(rows, fit.Need{Numeric: []string{"water_temp"}})
+			w, f := strings.Fields(want[7]), strings.Fields(fewer[7])
+			if len(fewer) != 300 || f[0] != w[0] || f[1] != w[2] {
+				t.Errorf("a pass over one column: %q against %q", fewer[7], want[7])
+			}
+		})
 	}
 }
