@@ -140,9 +140,13 @@ type App struct {
 	listener net.Listener
 	server   *http.Server
 	cancel   context.CancelFunc // stops the bring-up
-	upDone   chan struct{}      // closed when the bring-up goroutine ends
-	stopped  chan struct{}      // closed when Stop has finished
-	stopErr  error
+	// loops is cancelled by stopLoops when the App stops: the background
+	// loops (the catch-up of missed slots) run under it.
+	loops     context.Context
+	stopLoops context.CancelFunc
+	upDone    chan struct{} // closed when the bring-up goroutine ends
+	stopped   chan struct{} // closed when Stop has finished
+	stopErr   error
 	// The database side, set by the bring-up.
 	pool         *pgxpool.Pool
 	store        *history.Store
@@ -245,6 +249,7 @@ func (a *App) Start(ctx context.Context) error {
 	a.log.Info("listening", "addr", ln.Addr().String())
 
 	base := context.WithoutCancel(ctx)
+	a.loops, a.stopLoops = context.WithCancel(base)
 	upCtx, cancel := context.WithCancel(base)
 	a.cancel, a.upDone, a.stopped = cancel, make(chan struct{}), make(chan struct{})
 	go a.bringUp(upCtx, base)
@@ -307,6 +312,7 @@ func (a *App) stop(ctx context.Context) error {
 	a.setNotReady("stopping")
 	var errs []error
 	a.cancel()
+	a.stopLoops()
 	select {
 	case <-a.upDone:
 	case <-ctx.Done():

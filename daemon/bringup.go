@@ -113,7 +113,7 @@ func (a *App) up(ctx, base context.Context) error {
 		a.mu.Lock()
 		a.riverStarted = true
 		a.mu.Unlock()
-		go a.catchUpLoop(base, pool, schema)
+		go a.catchUpLoop(a.loops, pool, schema)
 	}
 	return nil
 }
