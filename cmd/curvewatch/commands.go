@@ -31,7 +31,7 @@ var commands = []command{
 	{name: "predict", summary: "evaluate a fit document on new CSV rows; adds link, link_se, response", run: runPredict},
 	{name: "compare", summary: "compare a candidate fit with a reference fit of the same model; exit 3 on a breach", run: runCompare},
 	{name: "validate", summary: "check the daemon config: schedules, specs, source tables and columns", run: runValidate},
-	{name: "serve", summary: "run the daemon: refit every model on its schedule, serve /healthz and /readyz", run: runServe},
+	{name: "serve", summary: "run the daemon: scheduled refits, alerts, metrics, the dashboard", run: runServe},
 	{name: "run", summary: "refit one configured model now from its source table, as the daemon would", run: runRun},
 	{name: "history", summary: "list a model's recorded fits: when, rows, deviance explained, verdicts", run: runHistory},
 	{name: "baseline", summary: "pin a succeeded fit as a model's baseline, or show the baseline", run: runBaseline},

@@ -21,19 +21,26 @@ model is run once across all of them, a model never runs twice at once, and
 a slot whose replica died mid-refit is run again by another after the lease
 (twice --job-timeout).
 
-On start it serves /healthz and /readyz on the config's listen address,
-then connects to the database, retrying with backoff while it is down;
+On start it serves, on the config's listen address, the dashboard (/), the
+JSON API (/api/v1/), /metrics, /healthz and /readyz; then it connects to the
+database, retrying with backoff while it is down;
 applies the migrations (as 'curvewatch migrate' does, plus the job queue's
 own tables); and runs, once, each model's latest slot that the history has
 no refit for.
 
 SIGTERM or SIGINT stops it within 10 seconds: a refit in flight is given
 half of that to finish, then cancelled, and its transaction rolls back; its
-slot is run again on the next start or by another replica.`,
+slot is run again on the next start or by another replica.
+
+Each refit also updates the model's alerts (pending, firing, resolved) in
+its own transaction and queues what the receivers in the config's alerting
+section must hear; any replica sends the queue, retrying failures, and
+re-sends firing alerts to Alertmanager every alerting.resend_every.`,
 	example: "curvewatch serve --config curvewatch.yaml",
 	writes: []item{
-		{"database", "the fit history in the config's schema (fits, curve points, comparisons, baselines, watermarks) and the job queue's tables there."},
-		{"listen", "/healthz (200 while the process runs) and /readyz (200 when the database answers and the schema is migrated; 503 with the reason otherwise) on the config's listen address."},
+		{"database", "the fit history in the config's schema (fits, curve points, comparisons, baselines, watermarks, alert states and deliveries) and the job queue's tables there."},
+		{"listen", "the dashboard, the API, /metrics, /healthz (200 while the process runs) and /readyz (200 when the database answers and the schema is migrated; 503 with the reason otherwise)."},
+		{"alerts", "to the Alertmanagers and webhooks of the config's alerting section."},
 		{"stderr", "the log: one line per refit, and warnings such as an unreachable database; with --verbose also the job queue's detail."},
 	},
 	exits: []item{
