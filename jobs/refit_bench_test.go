@@ -17,8 +17,9 @@ import (
 // BenchmarkRefitSmall times one refit of a small model (10,000 rows, three
 // curves) — pull, fit, comparison with the baseline and the history
 // writes — beside the pure fit of the same rows held in memory
-// (BenchmarkRefitSmall/pure): their ratio is the per-refit overhead the
-// fleet benchmark (bench/fleet.sh) pays.
+// (BenchmarkRefitSmall/pure), both on one goroutine as in a daemon running
+// a refit per core: their ratio is the per-refit overhead the fleet
+// benchmark (bench/fleet.sh) pays.
 func BenchmarkRefitSmall(b *testing.B) {
 	ctx := context.Background()
 	e := newEnvTB(b)
@@ -49,13 +50,13 @@ func BenchmarkRefitSmall(b *testing.B) {
 	end := e.t0.Add(n * time.Minute)
 	b.Run("pure", func(b *testing.B) {
 		for b.Loop() {
-			if _, err := fit.Fit(ctx, spec, tbl, fit.Options{TimeColumn: "observed_at"}); err != nil {
+			if _, err := fit.Fit(ctx, spec, tbl, fit.Options{TimeColumn: "observed_at", Workers: 1}); err != nil {
 				b.Fatal(err)
 			}
 		}
 	})
 	b.Run("refit", func(b *testing.B) {
-		r := &jobs.Runner{Source: e.pool, Store: e.store}
+		r := &jobs.Runner{Source: e.pool, Store: e.store, FitWorkers: 1}
 		slot := end
 		for b.Loop() {
 			slot = slot.Add(time.Second)

@@ -144,12 +144,14 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 	if err != nil {
 		return 0, err
 	}
-	for i := range points {
-		points[i][0] = id
-	}
-	if len(points) > 0 {
-		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"fit_curve_points"},
-			[]string{"fit_id", "term", "point", "x", "fit", "se"}, pgx.CopyFromRows(points)); err != nil {
+	if len(points.term) > 0 {
+		// One statement with arrays: for a few hundred rows it is several
+		// times quicker than COPY, which first asks for the table's
+		// column types.
+		if _, err := tx.Exec(ctx, `
+			INSERT INTO fit_curve_points (fit_id, term, point, x, fit, se)
+			SELECT $1, * FROM unnest($2::text[], $3::int4[], $4::float8[], $5::float8[], $6::float8[])`,
+			id, points.term, points.point, points.x, points.fit, points.se); err != nil {
 			return 0, fmt.Errorf("store the curve grids: %w", err)
 		}
 	}
@@ -161,10 +163,18 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 	return id, nil
 }
 
+// gridPoints holds the curve grid points of a document as columns, one
+// entry per point.
+type gridPoints struct {
+	term       []string
+	point      []int32
+	x, fit, se []float64
+}
+
 // curvePoints lists the grid points of the document's curves, one row per
-// point (fit id first, filled in later). Surfaces stay in the document.
-func curvePoints(doc *fit.Document) ([][]any, error) {
-	var rows [][]any
+// point. Surfaces stay in the document.
+func curvePoints(doc *fit.Document) (*gridPoints, error) {
+	p := &gridPoints{}
 	for _, t := range doc.Terms {
 		if t.Kind != fit.Curve || t.Grid == nil {
 			continue
@@ -174,10 +184,12 @@ func curvePoints(doc *fit.Document) ([][]any, error) {
 			return nil, fmt.Errorf("term %q: grid has %d x, %d fit and %d se values", t.Name, len(g.X), len(g.Fit), len(g.SE))
 		}
 		for i := range g.X {
-			rows = append(rows, []any{int64(0), t.Name, int32(i), g.X[i], g.Fit[i], g.SE[i]})
+			p.term = append(p.term, t.Name)
+			p.point = append(p.point, int32(i))
 		}
+		p.x, p.fit, p.se = append(p.x, g.X...), append(p.fit, g.Fit...), append(p.se, g.SE...)
 	}
-	return rows, nil
+	return p, nil
 }
 
 // RecordFailure records a refit that produced no fit, with its reason, and

@@ -195,7 +195,7 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 	for _, c := range need.Numeric {
 		id := pgx.Identifier{c}.Sanitize()
 		if c == r.q.Time {
-			sel = append(sel, "extract(epoch from "+id+")::float8")
+			sel = append(sel, "date_part('epoch', "+id+")") // double precision, without extract's numeric detour
 		} else {
 			sel = append(sel, id+"::float8")
 		}
