@@ -84,28 +84,15 @@ type alertEventsAnswer struct {
 }
 
 func (s *Server) listAlertEvents(w http.ResponseWriter, r *http.Request, st *history.Store) error {
-	m, err := s.model(r)
+	m, list, next, err := fetchPage(s, r, st.AlertEvents, func(e *history.AlertEvent) int64 { return e.ID })
 	if err != nil {
 		return err
 	}
-	limit, before, err := pageParams(r, defaultPage, maxPage)
-	if err != nil {
-		return err
-	}
-	list, err := st.AlertEvents(r.Context(), m.Name, limit+1, before)
-	if err != nil {
-		return err
-	}
-	more := len(list) > limit
-	list = list[:min(len(list), limit)]
-	ans := alertEventsAnswer{Model: m.Name, Events: make([]alertEvent, len(list))}
+	ans := alertEventsAnswer{Model: m.Name, Events: make([]alertEvent, len(list)), page: next}
 	for i, e := range list {
 		ans.Events[i] = alertEvent{ID: e.ID, Model: e.Model, Term: e.Term, Kind: string(e.Kind),
 			Severity: e.Kind.Severity(), State: string(e.State), At: e.At, Summary: e.Summary,
 			Numbers: e.Numbers, FitID: nonZero(e.FitID)}
-	}
-	if more {
-		ans.page = nextPage(r, true, list[len(list)-1].ID, limit)
 	}
 	return writeJSON(w, http.StatusOK, ans)
 }

@@ -16,26 +16,13 @@ type comparisonsAnswer struct {
 }
 
 func (s *Server) listComparisons(w http.ResponseWriter, r *http.Request, st *history.Store) error {
-	m, err := s.model(r)
+	m, list, next, err := fetchPage(s, r, st.Comparisons, func(c *history.ComparisonBrief) int64 { return c.ID })
 	if err != nil {
 		return err
 	}
-	limit, before, err := pageParams(r, defaultPage, maxPage)
-	if err != nil {
-		return err
-	}
-	list, err := st.Comparisons(r.Context(), m.Name, limit+1, before)
-	if err != nil {
-		return err
-	}
-	more := len(list) > limit
-	list = list[:min(len(list), limit)]
-	ans := comparisonsAnswer{Model: m.Name, Comparisons: make([]comparisonSummary, len(list))}
+	ans := comparisonsAnswer{Model: m.Name, Comparisons: make([]comparisonSummary, len(list)), page: next}
 	for i := range list {
 		ans.Comparisons[i] = *newComparisonSummary(&list[i])
-	}
-	if more {
-		ans.page = nextPage(r, true, list[len(list)-1].ID, limit)
 	}
 	return writeJSON(w, http.StatusOK, ans)
 }

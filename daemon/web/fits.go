@@ -92,20 +92,10 @@ type fitsAnswer struct {
 }
 
 func (s *Server) listFits(w http.ResponseWriter, r *http.Request, st *history.Store) error {
-	m, err := s.model(r)
+	m, fits, next, err := fetchPage(s, r, st.Fits, func(f *history.StoredFit) int64 { return f.ID })
 	if err != nil {
 		return err
 	}
-	limit, before, err := pageParams(r, defaultPage, maxPage)
-	if err != nil {
-		return err
-	}
-	fits, err := st.Fits(r.Context(), m.Name, limit+1, before)
-	if err != nil {
-		return err
-	}
-	more := len(fits) > limit
-	fits = fits[:min(len(fits), limit)]
 	ids := make([]int64, len(fits))
 	for i, f := range fits {
 		ids[i] = f.ID
@@ -118,16 +108,13 @@ func (s *Server) listFits(w http.ResponseWriter, r *http.Request, st *history.St
 	if err != nil {
 		return err
 	}
-	ans := fitsAnswer{Model: m.Name, BaselineFitID: nonZero(baseline), Fits: make([]fitSummary, len(fits))}
+	ans := fitsAnswer{Model: m.Name, BaselineFitID: nonZero(baseline), Fits: make([]fitSummary, len(fits)), page: next}
 	for i := range fits {
 		var v *history.Verdict
 		if x, ok := verdicts[fits[i].ID]; ok {
 			v = &x
 		}
 		ans.Fits[i] = newFitSummary(&fits[i], baseline, v)
-	}
-	if more {
-		ans.page = nextPage(r, true, fits[len(fits)-1].ID, limit)
 	}
 	return writeJSON(w, http.StatusOK, ans)
 }

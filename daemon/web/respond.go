@@ -2,6 +2,7 @@ package web
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"fmt"
 	"math"
@@ -125,6 +126,30 @@ func nextPage(r *http.Request, more bool, last int64, limit int) page {
 	q.Set("before", strconv.FormatInt(last, 10))
 	u := r.URL.Path + "?" + q.Encode()
 	return page{NextBefore: &last, Next: &u}
+}
+
+// fetchPage reads one page of a model's list, newest first: the model
+// named in the path, the page's items (at most the limit; fetch is asked
+// for one more to learn whether another page follows) and the link to the
+// next page (empty on the last), keyed by each item's id.
+func fetchPage[T any](s *Server, r *http.Request, fetch func(ctx context.Context, model string, limit int, before int64) ([]T, error), id func(*T) int64) (*Model, []T, page, error) {
+	m, err := s.model(r)
+	if err != nil {
+		return nil, nil, page{}, err
+	}
+	limit, before, err := pageParams(r, defaultPage, maxPage)
+	if err != nil {
+		return nil, nil, page{}, err
+	}
+	list, err := fetch(r.Context(), m.Name, limit+1, before)
+	if err != nil {
+		return nil, nil, page{}, err
+	}
+	if len(list) <= limit {
+		return m, list, page{}, nil
+	}
+	list = list[:limit]
+	return m, list, nextPage(r, true, id(&list[limit-1]), limit), nil
 }
 
 // csv splits the values of a repeatable, comma-separated query parameter.
