@@ -3,7 +3,6 @@ package pgtest
 import (
 	"context"
 	"fmt"
-	"os"
 	"strings"
 	"testing"
 	"time"
@@ -141,47 +140,5 @@ func TestNoServerSaysHowToGetOne(t *testing.T) {
 		if !strings.Contains(r.msg, want) {
 			t.Errorf("failure %q lacks %q", r.msg, want)
 		}
-	}
-}
-
-// TestStartCluster starts and stops a throwaway cluster of its own, whatever
-// URL the environment gives, so the fallback that developers without a
-// server rely on is tested wherever the server binaries are installed.
-func TestStartCluster(t *testing.T) {
-	t.Parallel()
-	if _, err := pgcluster.FindServer(context.Background()); err != nil {
-		if envURL() != "" {
-			// Not a missing server: the tests have one through the URL.
-			t.Skipf("the tests use the server at $%s; no server binaries to test starting a cluster: %v", EnvTestURL, err)
-		}
-		t.Fatalf("%v; %s", err, howTo)
-	}
-	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Minute)
-	defer cancel()
-	c, err := StartCluster(ctx)
-	if err != nil {
-		t.Fatal(err)
-	}
-	conn, err := pgx.Connect(ctx, c.URL)
-	if err != nil {
-		c.Stop()
-		t.Fatal(err)
-	}
-	var v string
-	err = conn.QueryRow(ctx, "SHOW server_version").Scan(&v)
-	conn.Close(ctx)
-	if err != nil {
-		c.Stop()
-		t.Fatal(err)
-	}
-	t.Logf("throwaway cluster: PostgreSQL %s on port %d", v, c.Port)
-	if err := c.Stop(); err != nil {
-		t.Fatal(err)
-	}
-	if _, err := os.Stat(c.Dir); !os.IsNotExist(err) {
-		t.Errorf("cluster directory %s left behind (%v)", c.Dir, err)
-	}
-	if _, err := pgx.Connect(ctx, c.URL); err == nil {
-		t.Errorf("server still answers on port %d after Stop", c.Port)
 	}
 }
