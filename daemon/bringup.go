@@ -221,10 +221,12 @@ func (a *App) newClient(pool *pgxpool.Pool, schema string) (*river.Client[pgx.Tx
 		Schema:  schema,
 		Queues:  map[string]river.QueueConfig{Queue: {MaxWorkers: a.opts.Workers}},
 		Workers: workers,
-		// Refits are seconds long and a fleet's slot queues hundreds at
-		// once: fetch the next job soon after a worker frees (River's
-		// defaults, 100 ms and 1 s, leave workers idle between jobs).
-		FetchCooldown:        20 * time.Millisecond,
+		// A fleet's slot queues hundreds of refits at once, each of them
+		// tens of milliseconds for a small model: fetch the next job as
+		// soon as a worker frees. River fetches at most once per cooldown,
+		// so a longer cooldown (its default is 100 ms, and 20 ms before
+		// this) leaves a worker idle for most of it after every refit.
+		FetchCooldown:        2 * time.Millisecond,
 		FetchPollInterval:    250 * time.Millisecond,
 		PeriodicJobs:         periodic,
 		JobTimeout:           a.opts.JobTimeout,
