@@ -4,6 +4,7 @@ import (
 	"context"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 	"time"
 
@@ -332,4 +333,25 @@ func (e *alertEnv) stateOf(t *testing.T, model, term string, kind alerts.Kind) a
 		}
 	}
 	return alerts.Status{}
+}
+
+// A refit that overruns the job timeout is recorded as a failure like any
+// other, alert states included: refits that keep timing out fire
+// refit_failing.
+func TestTimedOutRefitsFireRefitFailing(t *testing.T) {
+	t.Parallel()
+	db := newTestDB(t)
+	cfg := testConfig(t, db, "@every 1s")
+	// Every row costs 20 ms to read: far beyond the job timeout.
+	cfg.Models[0].Source.Where = "pg_sleep(0.02) IS NOT NULL"
+	cfg.Models[0].Watch.FailingRuns = 2
+	a, _ := startApp(t, cfg, Options{Workers: 2, JobTimeout: 300 * time.Millisecond})
+	waitReady(t, a, 15*time.Second)
+	waitFor(t, 30*time.Second, "refit_failing firing", func() (bool, error) {
+		return db.count(t, `SELECT count(*) FROM alert_states WHERE kind = 'refit_failing' AND state = 'firing'`) == 1, nil
+	})
+	var reason string
+	if err := db.pool.QueryRow(context.Background(), `SELECT reason FROM fits WHERE status = 'failed' ORDER BY id LIMIT 1`).Scan(&reason); err != nil || !strings.Contains(reason, "timed out") {
+		t.Errorf("first failure's reason %q (%v)", reason, err)
+	}
 }

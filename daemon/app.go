@@ -174,6 +174,9 @@ func New(cfg *config.Config, opts Options) (*App, error) {
 	if len(cfg.Models) == 0 {
 		return nil, errors.New("daemon: the config has no models")
 	}
+	if len(cfg.Schema) > config.MaxSchemaLength {
+		return nil, fmt.Errorf("daemon: schema name %q is longer than %d characters, the most the job queue allows in the schema it shares", cfg.Schema, config.MaxSchemaLength)
+	}
 	if _, err := pgxpool.ParseConfig(cfg.Database.Reveal()); err != nil {
 		// pgx's message may quote the URL, password included.
 		return nil, errors.New("daemon: the database URL does not parse: give a postgres://user@host:port/database URL")

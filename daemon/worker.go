@@ -120,9 +120,20 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 		if job.AttemptedAt != nil {
 			started = *job.AttemptedAt
 		}
-		if _, rerr := store.RecordFailure(rctx, args.Model, args.Slot, reason, started, now); rerr != nil {
+		// Recorded as every failure is, alert states included (a model
+		// whose refits keep timing out fires refit_failing).
+		rerr := store.InTx(rctx, func(tx pgx.Tx) error {
+			id, err := store.RecordFailureTx(rctx, tx, args.Model, args.Slot, reason, started, now)
+			if err != nil || runner.OnRecord == nil {
+				return err
+			}
+			return runner.OnRecord(rctx, tx, &jobs.Result{Model: args.Model, Slot: args.Slot, Status: jobs.StatusFailed,
+				Reason: reason, FitID: id, Duration: now.Sub(started)})
+		})
+		if rerr != nil {
 			return fmt.Errorf("model %q: %s, and recording that failed: %w", args.Model, reason, rerr)
 		}
+		d.kick()
 		a.metrics.observeRefit(args.Model, jobs.StatusFailed, now.Sub(started))
 		log.Warn("refit timed out", "timeout", a.opts.JobTimeout)
 		return nil

@@ -30,7 +30,10 @@ import (
 
 // Defaults for keys left out.
 const (
-	DefaultSchema   = "curvewatch"
+	DefaultSchema = "curvewatch"
+	// MaxSchemaLength is the longest schema name: River, the job queue
+	// whose tables share the schema, allows 46 characters.
+	MaxSchemaLength = 46
 	DefaultListen   = "127.0.0.1:9464"
 	DefaultTimezone = "UTC"
 	// DefaultOverlap is how far before its watermark a run re-reads rows,

@@ -47,6 +47,8 @@ func (p *parser) config(root *yaml.Node) *Config {
 			if v, ok := p.text(e, e.key, "the schema for curvewatch's own tables, e.g. curvewatch"); ok {
 				if err := migrations.CheckSchema(v); err != nil {
 					p.add(e.line, e.key, "%v", err)
+				} else if len(v) > MaxSchemaLength {
+					p.add(e.line, e.key, "schema name %q is longer than %d characters: the job queue keeps its tables in the same schema and allows no more; choose a shorter one", clip(v), MaxSchemaLength)
 				} else {
 					c.Schema = v
 				}
