@@ -2,6 +2,7 @@ package migrations_test
 
 import (
 	"context"
+	"fmt"
 	"io/fs"
 	"regexp"
 	"slices"
@@ -21,7 +22,7 @@ func TestMain(m *testing.M) { pgtest.Main(m) }
 // tables are the tables the migrations create, all of them.
 var tables = []string{
 	"alert_deliveries", "alert_events", "alert_states", "baselines", "comparison_terms", "comparisons",
-	"fit_curve_points", "fits", "models", "slot_tests", "watermarks",
+	"fit_curves", "fits", "models", "slot_tests", "watermarks",
 }
 
 func ctxT(t *testing.T) context.Context {
@@ -291,5 +292,63 @@ func TestFileNames(t *testing.T) {
 		if k != 2 {
 			t.Errorf("%s: has %d of its up and down files", base, k)
 		}
+	}
+}
+
+// Migration 5 moves the curve grid points into one array row per fit and
+// term and keeps fit_curve_points as a view: the points read the same
+// before and after, and after migrating back down.
+func TestCurveArraysKeepThePoints(t *testing.T) {
+	url, schema := pgtest.Schema(t)
+	conn := connect(t, url)
+	if err := migrations.Steps(ctxT(t), url, schema, 4); err != nil {
+		t.Fatal(err)
+	}
+	q := pgx.Identifier{schema}.Sanitize()
+	setup := []string{
+		`INSERT INTO ` + q + `.models (name) VALUES ('sonde')`,
+		`INSERT INTO ` + q + `.fits (id, model, status, started_at, finished_at, document) VALUES (7, 'sonde', 'succeeded', now(), now(), '{}')`,
+		`INSERT INTO ` + q + `.fit_curve_points VALUES (7, 'water_temp', 0, 4, -1.5, 0.2), (7, 'water_temp', 1, 14, 0.1, 0.1),
+			(7, 'water_temp', 2, 24, 1.4, 0.3), (7, 'flow', 0, 1, 0.2, 0.05), (7, 'flow', 1, 9, -0.2, 0.06)`,
+	}
+	for _, s := range setup {
+		if _, err := conn.Exec(ctxT(t), s); err != nil {
+			t.Fatal(err)
+		}
+	}
+	points := func() string {
+		rows, err := conn.Query(ctxT(t), `SELECT fit_id, term, point, x, fit, se FROM `+q+`.fit_curve_points ORDER BY term, point`)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var out []string
+		for rows.Next() {
+			vals, err := rows.Values()
+			if err != nil {
+				t.Fatal(err)
+			}
+			out = append(out, fmt.Sprint(vals))
+		}
+		if err := rows.Err(); err != nil {
+			t.Fatal(err)
+		}
+		return strings.Join(out, "; ")
+	}
+	before := points()
+	if err := migrations.Steps(ctxT(t), url, schema, 1); err != nil {
+		t.Fatal(err)
+	}
+	if got := points(); got != before {
+		t.Errorf("after migration 5 the view shows\n%s\nwant\n%s", got, before)
+	}
+	var n int
+	if err := conn.QueryRow(ctxT(t), `SELECT count(*) FROM `+q+`.fit_curves`).Scan(&n); err != nil || n != 2 {
+		t.Errorf("fit_curves rows %d (%v), want 2", n, err)
+	}
+	if err := migrations.Steps(ctxT(t), url, schema, -1); err != nil {
+		t.Fatal(err)
+	}
+	if got := points(); got != before {
+		t.Errorf("after migrating back down the table holds\n%s\nwant\n%s", got, before)
 	}
 }

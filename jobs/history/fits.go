@@ -144,15 +144,10 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 	if err != nil {
 		return 0, err
 	}
-	if len(points.term) > 0 {
-		// One statement with arrays: for a few hundred rows it is several
-		// times quicker than COPY, which first asks for the table's
-		// column types.
-		if _, err := tx.Exec(ctx, `
-			INSERT INTO fit_curve_points (fit_id, term, point, x, fit, se)
-			SELECT $1, * FROM unnest($2::text[], $3::int4[], $4::float8[], $5::float8[], $6::float8[])`,
-			id, points.term, points.point, points.x, points.fit, points.se); err != nil {
-			return 0, fmt.Errorf("store the curve grids: %w", err)
+	for _, c := range points {
+		if _, err := tx.Exec(ctx, `INSERT INTO fit_curves (fit_id, term, x, fit, se) VALUES ($1, $2, $3, $4, $5)`,
+			id, c.term, c.x, c.fit, c.se); err != nil {
+			return 0, fmt.Errorf("store the grid of curve %q: %w", c.term, err)
 		}
 	}
 	if !rec.Watermark.IsZero() {
@@ -163,18 +158,17 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 	return id, nil
 }
 
-// gridPoints holds the curve grid points of a document as columns, one
-// entry per point.
-type gridPoints struct {
-	term       []string
-	point      []int32
+// curveGrid is one curve's grid, as stored in fit_curves.
+type curveGrid struct {
+	term       string
 	x, fit, se []float64
 }
 
-// curvePoints lists the grid points of the document's curves, one row per
-// point. Surfaces stay in the document.
-func curvePoints(doc *fit.Document) (*gridPoints, error) {
-	p := &gridPoints{}
+// curvePoints lists the grids of the document's curves (the view
+// fit_curve_points shows them a row per point). Surfaces stay in the
+// document.
+func curvePoints(doc *fit.Document) ([]curveGrid, error) {
+	var out []curveGrid
 	for _, t := range doc.Terms {
 		if t.Kind != fit.Curve || t.Grid == nil {
 			continue
@@ -183,13 +177,9 @@ func curvePoints(doc *fit.Document) (*gridPoints, error) {
 		if len(g.Fit) != len(g.X) || len(g.SE) != len(g.X) {
 			return nil, fmt.Errorf("term %q: grid has %d x, %d fit and %d se values", t.Name, len(g.X), len(g.Fit), len(g.SE))
 		}
-		for i := range g.X {
-			p.term = append(p.term, t.Name)
-			p.point = append(p.point, int32(i))
-		}
-		p.x, p.fit, p.se = append(p.x, g.X...), append(p.fit, g.Fit...), append(p.se, g.SE...)
+		out = append(out, curveGrid{term: t.Name, x: g.X, fit: g.Fit, se: g.SE})
 	}
-	return p, nil
+	return out, nil
 }
 
 // RecordFailure records a refit that produced no fit, with its reason, and
