@@ -22,10 +22,10 @@ for replicas in 1 ${CURVEWATCH_FLEET_MORE_REPLICAS-2}; do
   printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet-' || true
   line=$(printf '%s\n' "$out" | awk -v r="$replicas" '/^BenchmarkFleet-/ {
     for (i = 1; i <= NF; i++) m[$i] = $(i-1)
-    printf "%s replica(s), fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core; %.1f models/s\n",
-      r, ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"], m["models_per_s"] }')
+    printf "%s replica(s), fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core; %.1f models/s; floor (pure fits, a goroutine per core) %.2f\n",
+      r, ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"], m["models_per_s"], m["parallel_pure_over_purefit"] }')
   echo "$line"
-  rate[$replicas]=$(printf '%s\n' "$line" | sed -E 's/.*; ([0-9.]+) models\/s$/\1/')
+  rate[$replicas]=$(printf '%s\n' "$line" | sed -E 's/.*; ([0-9.]+) models\/s;.*/\1/')
 done
 if [ -n "${rate[2]:-}" ]; then
   awk -v a="${rate[1]}" -v b="${rate[2]}" 'BEGIN { printf "two replicas against one: throughput ratio %.2f (both on this machine'"'"'s cores)\n", b / a }'

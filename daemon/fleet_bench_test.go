@@ -7,6 +7,8 @@ import (
 	"os"
 	"runtime"
 	"strconv"
+	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -108,11 +110,13 @@ func BenchmarkFleet(b *testing.B) {
 
 	// (b) The pure fits, one model at a time, on the rows held in memory.
 	var pure time.Duration
+	tabs := make([]*fit.Table, models)
 	for k := range models {
 		tab, err := fleetRowsOf(ctx, pool, k)
 		if err != nil {
 			b.Fatal(err)
 		}
+		tabs[k] = tab
 		start := time.Now()
 		// One goroutine per fit: the time one core spends on it, which is
 		// what dividing by the cores assumes (the daemon, with a refit per
@@ -128,6 +132,27 @@ func BenchmarkFleet(b *testing.B) {
 	}
 	pureFitPerCore := pure.Seconds() / float64(cores)
 	b.Logf("pure fits: %.2f s in all, %.2f s per core", pure.Seconds(), pureFitPerCore)
+
+	// (c) The best any scheduler could do: the same pure fits, a goroutine
+	// per core, no database. Its ratio to (b) is the floor of the target's
+	// ratio on this machine (cores that slow each other down).
+	startPar := time.Now()
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range cores {
+		wg.Go(func() {
+			for k := int(next.Add(1) - 1); k < models; k = int(next.Add(1) - 1) {
+				if _, err := fit.Fit(ctx, spec, tabs[k], fit.Options{TimeColumn: "observed_at", Workers: 1}); err != nil {
+					b.Errorf("parallel pure fit of sensor %d: %v", k, err)
+					return
+				}
+			}
+		})
+	}
+	wg.Wait()
+	parallelWall := time.Since(startPar).Seconds()
+	tabs = nil
+	b.Logf("pure fits a goroutine per core: %.2f s wall, %.2f × the pure fits per core", parallelWall, parallelWall/pureFitPerCore)
 
 	// (a) The Apps (CURVEWATCH_FLEET_REPLICAS of them, default 1, each
 	// with a worker per core) run the slot for every model.
@@ -210,6 +235,7 @@ func BenchmarkFleet(b *testing.B) {
 		b.Fatalf("%d of %d fits did not succeed (first: %s)", bad, models, reason)
 	}
 	b.ReportMetric(wall, "wall_s")
+	b.ReportMetric(parallelWall/pureFitPerCore, "parallel_pure_over_purefit")
 	b.ReportMetric(float64(models)/wall, "models_per_s")
 	b.ReportMetric(float64(replicas), "replicas")
 	b.ReportMetric(startupWall.Seconds(), "startup_wall_s")
