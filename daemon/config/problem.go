@@ -3,33 +3,14 @@ package config
 import (
 	"fmt"
 	"strings"
+
+	"github.com/curvewatch/curvewatch/fit/yamlnode"
 )
 
-// Problem is one thing wrong with a config.
-type Problem struct {
-	// Line is the line of the config file the problem is on, counting from
-	// 1, or 0 when unknown.
-	Line int `json:"line,omitempty"`
-	// Path names the key at fault: "database", "models[1].schedule",
-	// "models[0].spec.terms[2]" (list entries count from 0).
-	Path string `json:"path,omitempty"`
-	// Message says what is wrong and what to do.
-	Message string `json:"message"`
-}
-
-// String formats the problem as "line N: PATH: MESSAGE", leaving out what
-// is unknown or empty.
-func (p Problem) String() string {
-	var b strings.Builder
-	if p.Line > 0 {
-		fmt.Fprintf(&b, "line %d: ", p.Line)
-	}
-	if p.Path != "" {
-		b.WriteString(p.Path + ": ")
-	}
-	b.WriteString(p.Message)
-	return b.String()
-}
+// Problem is one thing wrong with a config: its Path names the key at
+// fault ("database", "models[1].schedule", "models[0].spec.terms[2]"; list
+// entries count from 0).
+type Problem = yamlnode.Problem
 
 // Error reports every problem found in a config, in line order, so that a
 // user can fix them all in one go.

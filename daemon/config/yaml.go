@@ -6,9 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"strconv"
 	"strings"
-	"unicode/utf8"
 
 	"go.yaml.in/yaml/v3"
 
@@ -63,38 +61,7 @@ func (p *parser) document(data []byte) *yaml.Node {
 
 // syntax records a YAML syntax error with the line the YAML reader gives.
 func (p *parser) syntax(err error, data []byte) {
-	msg := strings.TrimPrefix(err.Error(), "yaml: ")
-	if rest, ok := strings.CutPrefix(msg, "line "); ok {
-		if num, after, ok := strings.Cut(rest, ": "); ok {
-			if n, err := strconv.Atoi(num); err == nil {
-				p.add(n, "", "not valid YAML: %s (the mistake is on this line or after it)", after)
-				return
-			}
-		}
-	}
-	if line := badCharLine(data); line > 0 {
-		p.add(line, "", "not valid YAML: %s (this line holds a control character or bytes that are not UTF-8)", msg)
-		return
-	}
-	p.add(0, "", "not valid YAML: %s", msg)
-}
-
-// badCharLine returns the line of the first character YAML does not allow,
-// or 0 if there is none.
-func badCharLine(data []byte) int {
-	line := 1
-	for i := 0; i < len(data); {
-		r, size := utf8.DecodeRune(data[i:])
-		switch {
-		case r == '\n':
-			line++
-		case r == '\t' || r == '\r' || r == 0x85:
-		case r == utf8.RuneError && size == 1, r < 0x20, r >= 0x7f && r < 0xa0, r == 0xfffe, r == 0xffff:
-			return line
-		}
-		i += size
-	}
-	return 0
+	p.problems = append(p.problems, yamlnode.Syntax(err, data))
 }
 
 // entry is one key of a YAML mapping with its value.
