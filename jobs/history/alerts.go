@@ -234,10 +234,7 @@ type AlertEvent struct {
 // when model is ""), newest first: those with id below beforeID, or the
 // newest when beforeID is 0. limit is as for Fits.
 func (s *Store) AlertEvents(ctx context.Context, model string, limit int, beforeID int64) ([]AlertEvent, error) {
-	if limit <= 0 {
-		limit = DefaultPage
-	}
-	limit = min(limit, MaxPage)
+	limit = pageLimit(limit)
 	rows, err := s.pool.Query(ctx, `
 		SELECT id, model, term, kind, state, at, summary, numbers, fit_id FROM alert_events
 		WHERE ($1 = '' OR model = $1) AND ($2::bigint = 0 OR id < $2::bigint)

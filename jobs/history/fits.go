@@ -336,14 +336,20 @@ const (
 	MaxPage     = 1000
 )
 
+// pageLimit is a page size as the paged reads take it: DefaultPage for 0
+// or less, at most MaxPage.
+func pageLimit(limit int) int {
+	if limit <= 0 {
+		return DefaultPage
+	}
+	return min(limit, MaxPage)
+}
+
 // Fits returns a page of the model's fits of every status, newest first,
 // without documents: those with id below beforeID, or the newest when
 // beforeID is 0. The next page starts before the last one returned.
 func (s *Store) Fits(ctx context.Context, model string, limit int, beforeID int64) ([]StoredFit, error) {
-	if limit <= 0 {
-		limit = DefaultPage
-	}
-	limit = min(limit, MaxPage)
+	limit = pageLimit(limit)
 	rows, err := s.pool.Query(ctx, `
 		SELECT `+summaryColumns+` FROM fits
 		WHERE model = $1 AND ($2::bigint = 0 OR id < $2::bigint)

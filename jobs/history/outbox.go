@@ -212,10 +212,7 @@ type DeliveryRow struct {
 // Deliveries returns the model's newest deliveries (every model's when
 // model is ""), newest first; limit is as for Fits.
 func (s *Store) Deliveries(ctx context.Context, model string, limit int) ([]DeliveryRow, error) {
-	if limit <= 0 {
-		limit = DefaultPage
-	}
-	limit = min(limit, MaxPage)
+	limit = pageLimit(limit)
 	rows, err := s.pool.Query(ctx, `
 		SELECT id, receiver, idempotency_key, model, alert, state, attempts, last_error, created_at, due_at, finished_at
 		FROM alert_deliveries WHERE ($1 = '' OR model = $1)

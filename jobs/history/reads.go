@@ -81,10 +81,7 @@ func scanComparison(row pgx.Row, withReport bool) (*StoredComparison, error) {
 // beforeID, or the newest when beforeID is 0. limit is as for Fits. It
 // runs two queries whatever the page size.
 func (s *Store) Comparisons(ctx context.Context, model string, limit int, beforeID int64) ([]ComparisonBrief, error) {
-	if limit <= 0 {
-		limit = DefaultPage
-	}
-	limit = min(limit, MaxPage)
+	limit = pageLimit(limit)
 	rows, err := s.pool.Query(ctx, `
 		SELECT `+comparisonColumns+` FROM comparisons
 		WHERE model = $1 AND ($2::bigint = 0 OR id < $2::bigint)
