@@ -44,6 +44,7 @@ import (
 	"github.com/curvewatch/curvewatch/daemon/web"
 	"github.com/curvewatch/curvewatch/jobs"
 	"github.com/curvewatch/curvewatch/jobs/history"
+	"github.com/curvewatch/curvewatch/jobs/source"
 )
 
 // Defaults for Options left at zero.
@@ -71,8 +72,11 @@ type Options struct {
 	// messages go to it too, at warning level and above unless the
 	// logger is enabled for debug.
 	Logger *slog.Logger
-	// Workers is the most refits this process runs at once (default: the
-	// number of CPUs).
+	// Workers is the most refits this process computes at once (default:
+	// the number of CPUs). Twice as many run at once, so that while some
+	// read rows or write the history the others keep the cores busy; the
+	// fits, comparisons and predictive checks — the work of the cores —
+	// are bounded to Workers at a time (jobs.Slots).
 	Workers int
 	// JobTimeout bounds one refit (default 10 minutes). A refit that
 	// overruns it is cancelled, rolled back and recorded as failed.
@@ -129,6 +133,10 @@ type App struct {
 	reg     *prometheus.Registry
 	metrics *metrics
 	web     *web.Server
+	// slots bounds the refits computing at once; catalog remembers the
+	// source tables' columns between refits.
+	slots   jobs.Slots
+	catalog *source.Catalog
 
 	ready    chan struct{} // closed when the database side is up
 	isReady  atomic.Bool
@@ -189,6 +197,10 @@ func New(cfg *config.Config, opts Options) (*App, error) {
 		models: map[string]jobs.Model{},
 		sched:  map[string]schedule{},
 		ready:  make(chan struct{}),
+		slots:  jobs.NewSlots(opts.Workers),
+		// A minute: a refit that then fails to read describes its table
+		// afresh, so a change is still named in its reason.
+		catalog: source.NewCatalog(time.Minute),
 	}
 	for i, m := range cfg.Models {
 		switch {

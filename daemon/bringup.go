@@ -148,8 +148,9 @@ func (a *App) connect(ctx context.Context, dsn string) (*pgxpool.Pool, error) {
 		return nil, errors.New("the database URL does not parse")
 	}
 	// River's producer, notifier, elector and maintenance services, plus
-	// per refit a lock connection and the source query.
-	cfg.MaxConns = max(cfg.MaxConns, int32(2*a.opts.Workers+10))
+	// per running refit (2 × Workers) a lock connection and the source
+	// query.
+	cfg.MaxConns = max(cfg.MaxConns, int32(8*a.opts.Workers+10))
 	pool, err := pgxpool.NewWithConfig(ctx, cfg)
 	if err != nil {
 		return nil, fmt.Errorf("connect: %w", err)
@@ -195,6 +196,11 @@ func migrateRiver(ctx context.Context, pool *pgxpool.Pool, schema string, log *s
 	return nil
 }
 
+// runningRefits is how many refits run at once for workers computing at
+// once: twice as many, so that the cores stay busy while half of them wait
+// on the database (see Options.Workers).
+func runningRefits(workers int) int { return 4 * workers }
+
 // newClient builds the River client: the refit worker, and one periodic
 // job per model. River enqueues periodic jobs on its elected leader only;
 // RunOnStart makes a newly elected leader enqueue each model's latest slot
@@ -219,7 +225,7 @@ func (a *App) newClient(pool *pgxpool.Pool, schema string) (*river.Client[pgx.Tx
 	}
 	c, err := river.NewClient(riverpgxv5.New(pool), &river.Config{
 		Schema:  schema,
-		Queues:  map[string]river.QueueConfig{Queue: {MaxWorkers: a.opts.Workers}},
+		Queues:  map[string]river.QueueConfig{Queue: {MaxWorkers: runningRefits(a.opts.Workers)}},
 		Workers: workers,
 		// A fleet's slot queues hundreds of refits at once, each of them
 		// tens of milliseconds for a small model: fetch the next job as

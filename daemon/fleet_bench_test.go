@@ -6,6 +6,7 @@ import (
 	"log/slog"
 	"os"
 	"runtime"
+	"runtime/pprof"
 	"strconv"
 	"sync"
 	"sync/atomic"
@@ -22,11 +23,12 @@ import (
 
 // Fleet benchmark settings (bench/fleet.sh sets them).
 const (
-	envFleet         = "CURVEWATCH_FLEET"          // "1" runs BenchmarkFleet
-	envFleetModels   = "CURVEWATCH_FLEET_MODELS"   // models in the fleet (default 1000)
-	envFleetReplicas = "CURVEWATCH_FLEET_REPLICAS" // daemons sharing the fleet (default 1)
-	envFleetWorkers  = "CURVEWATCH_FLEET_WORKERS"  // refits at once per daemon (default: the CPUs)
-	fleetRows        = 10_000                      // rows per model
+	envFleet         = "CURVEWATCH_FLEET"            // "1" runs BenchmarkFleet
+	envFleetModels   = "CURVEWATCH_FLEET_MODELS"     // models in the fleet (default 1000)
+	envFleetReplicas = "CURVEWATCH_FLEET_REPLICAS"   // daemons sharing the fleet (default 1)
+	envFleetWorkers  = "CURVEWATCH_FLEET_WORKERS"    // refits computing at once per daemon (default: the CPUs)
+	envFleetProfile  = "CURVEWATCH_FLEET_CPUPROFILE" // a file for a CPU profile of the daemons' phase only
+	fleetRows        = 10_000                        // rows per model
 )
 
 const fleetSpec = "name: fleet\nresponse: y\nfamily: gaussian\nterms:\n  - curve: x1\n  - curve: x2\n  - curve: x3\n"
@@ -183,6 +185,19 @@ func BenchmarkFleet(b *testing.B) {
 		apps = append(apps, a)
 	}
 	b.ResetTimer()
+	if path := os.Getenv(envFleetProfile); path != "" {
+		f, err := os.Create(path)
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := pprof.StartCPUProfile(f); err != nil {
+			b.Fatal(err)
+		}
+		defer func() {
+			pprof.StopCPUProfile()
+			f.Close()
+		}()
+	}
 	started := time.Now()
 	for _, a := range apps {
 		if err := a.Start(ctx); err != nil {

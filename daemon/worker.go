@@ -95,7 +95,8 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 
 	d := a.alerting()
 	// The refits at once share the cores: each fit gets its share.
-	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log, FitWorkers: max(1, runtime.NumCPU()/a.opts.Workers)}
+	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log, FitWorkers: max(1, runtime.NumCPU()/a.opts.Workers),
+		Slots: a.slots, Catalog: a.catalog}
 	if d != nil {
 		runner.OnRecord = d.alerter.onRecord
 	}

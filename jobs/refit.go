@@ -59,6 +59,15 @@ type Runner struct {
 	// there, so that they change exactly when the refit is recorded. An
 	// error rolls the whole record back and Run returns it.
 	OnRecord func(ctx context.Context, tx pgx.Tx, res *Result) error
+	// Slots, when set, bounds the refits computing at once: a refit holds
+	// one while it fits and compares, not while it reads rows or writes
+	// the history (see Slots).
+	Slots Slots
+	// Catalog, when set, remembers the source tables' columns between
+	// refits, so that a run need not read the catalogue first. A refit
+	// whose read fails describes its table afresh, so its reason still
+	// names a column that changed.
+	Catalog *source.Catalog
 }
 
 // Status of a refit.
@@ -137,7 +146,8 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		}
 	}()
 
-	if reason, err := checkColumns(ctx, r.Source, m); err != nil {
+	reason, cached, err := r.checkColumns(ctx, m)
+	if err != nil {
 		if ctx.Err() != nil {
 			return res, ctx.Err()
 		}
@@ -145,24 +155,56 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 	} else if reason != "" {
 		return fail(reason)
 	}
-	rows, err := source.Open(ctx, r.Source, source.Query{Table: m.Table, Time: m.Time, Where: m.Where,
-		From: end.Add(-m.Window), To: end, StatementTimeout: r.StatementTimeout})
-	if err != nil {
+	// readFailed explains a failed read or fit: when the columns were
+	// checked against a remembered description, the table may have changed
+	// since, and a fresh check says how.
+	readFailed := func(err error) (*Result, error) {
 		if ctx.Err() != nil {
 			return res, ctx.Err()
+		}
+		if cached {
+			r.Catalog.Forget(m.Table.String())
+			if reason, _, cerr := r.checkColumns(ctx, m); cerr == nil && reason != "" {
+				return fail(reason)
+			}
 		}
 		return fail(err.Error())
 	}
+	// A small window is read whole before the fit (see Query.Prefetch),
+	// so that the fit holds its slot only while it computes.
+	numeric, text := m.Spec.Columns()
+	rows, err := source.Open(ctx, r.Source, source.Query{Table: m.Table, Time: m.Time, Where: m.Where,
+		From: end.Add(-m.Window), To: end, StatementTimeout: r.StatementTimeout,
+		Prefetch: fit.Need{Numeric: numeric, Text: text}})
+	if err != nil {
+		return readFailed(err)
+	}
 	// The rows stay open (one snapshot) for the predictive check below.
 	defer rows.Close()
+	held := false
+	hold := func() error {
+		if err := r.Slots.acquire(ctx); err != nil {
+			return err
+		}
+		held = true
+		return nil
+	}
+	let := func() {
+		if held {
+			r.Slots.release()
+			held = false
+		}
+	}
+	defer let()
+	if err := hold(); err != nil {
+		return res, err
+	}
 	doc, fitErr := fit.Fit(ctx, m.Spec, rows, fit.Options{TimeColumn: m.Time, Workers: r.FitWorkers})
+	let()
 	newest := rows.Newest
 	res.Newest = newest
 	if fitErr != nil && !errors.Is(fitErr, fit.ErrNotConverged) {
-		if ctx.Err() != nil {
-			return res, ctx.Err()
-		}
-		return fail(fitErr.Error())
+		return readFailed(fitErr)
 	}
 	res.Document = doc
 	var window *history.Window
@@ -207,6 +249,9 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		if err != nil {
 			return res, fmt.Errorf("model %q: read reference fit %d: %w", m.Name, refID, err)
 		}
+		if err := hold(); err != nil {
+			return res, err
+		}
 		rep, err := fit.Compare(ref.Document, doc, m.Tolerance)
 		if err != nil {
 			res.CompareNote = "not compared: " + err.Error()
@@ -226,6 +271,7 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 			}
 			res.Report, res.ReferenceID = rep, refID
 		}
+		let()
 	}
 
 	finished := now()
@@ -288,12 +334,25 @@ func epoch(s float64) time.Time {
 // checkColumns compares the spec's columns with the source table's
 // catalogue before any row is read, so that a column of the wrong type
 // fails with a reason naming it (not a cast error from the database). It
-// returns that reason, or an error when the catalogue cannot be read.
-func checkColumns(ctx context.Context, pool *pgxpool.Pool, m Model) (string, error) {
-	cols, err := source.Describe(ctx, pool, m.Table.String())
-	if err != nil {
-		return "", err
+// returns that reason, or an error when the catalogue cannot be read;
+// cached says the description came from r.Catalog.
+func (r *Runner) checkColumns(ctx context.Context, m Model) (reason string, cached bool, err error) {
+	var cols []source.Column
+	if r.Catalog != nil {
+		cols, cached, err = r.Catalog.Describe(ctx, r.Source, m.Table.String())
+	} else {
+		cols, err = source.Describe(ctx, r.Source, m.Table.String())
 	}
+	if err != nil {
+		return "", false, err
+	}
+	reason = columnProblem(cols, m)
+	return reason, cached, nil
+}
+
+// columnProblem says what is wrong with the table's columns for model m,
+// or "".
+func columnProblem(cols []source.Column, m Model) string {
 	byName := make(map[string]source.Column, len(cols))
 	for _, c := range cols {
 		byName[c.Name] = c
@@ -302,25 +361,25 @@ func checkColumns(ctx context.Context, pool *pgxpool.Pool, m Model) (string, err
 	for _, name := range numeric {
 		c, ok := byName[name]
 		if !ok {
-			return fmt.Sprintf("column %q is not in table %s", name, m.Table), nil
+			return fmt.Sprintf("column %q is not in table %s", name, m.Table)
 		}
 		if num, _, tm := c.Usable(); !num && !(tm && name == m.Time) {
-			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a number (response, weights, offset, curve, surface or linear term)", name, m.Table, c.Type), nil
+			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a number (response, weights, offset, curve, surface or linear term)", name, m.Table, c.Type)
 		}
 	}
 	for _, name := range text {
 		c, ok := byName[name]
 		if !ok {
-			return fmt.Sprintf("column %q is not in table %s", name, m.Table), nil
+			return fmt.Sprintf("column %q is not in table %s", name, m.Table)
 		}
 		if _, txt, _ := c.Usable(); !txt {
-			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a factor (text or integer levels)", name, m.Table, c.Type), nil
+			return fmt.Sprintf("column %q of table %s is %s, but the spec uses it as a factor (text or integer levels)", name, m.Table, c.Type)
 		}
 	}
 	if c, ok := byName[m.Time]; !ok {
-		return fmt.Sprintf("time column %q is not in table %s", m.Time, m.Table), nil
+		return fmt.Sprintf("time column %q is not in table %s", m.Time, m.Table)
 	} else if _, _, tm := c.Usable(); !tm {
-		return fmt.Sprintf("time column %q of table %s is %s, not a timestamp or date", m.Time, m.Table, c.Type), nil
+		return fmt.Sprintf("time column %q of table %s is %s, not a timestamp or date", m.Time, m.Table, c.Type)
 	}
-	return "", nil
+	return ""
 }

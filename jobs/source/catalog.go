@@ -10,6 +10,8 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
+	"time"
 	"unicode"
 	"unicode/utf8"
 
@@ -281,4 +283,52 @@ func relkindName(kind string) string {
 		return "a TOAST table"
 	}
 	return "relation kind " + kind
+}
+
+// Catalog remembers table descriptions for a while, so that a daemon's
+// refits do not read the catalogue on every run. A description can be
+// out of date for up to TTL: a caller whose read then fails calls Forget
+// and describes the table again, to say what changed. Safe for concurrent
+// use.
+type Catalog struct {
+	ttl time.Duration
+	now func() time.Time
+	mu  sync.Mutex
+	m   map[string]catalogEntry
+}
+
+type catalogEntry struct {
+	cols []Column
+	at   time.Time
+}
+
+// NewCatalog makes a catalogue that keeps each description for ttl.
+func NewCatalog(ttl time.Duration) *Catalog {
+	return &Catalog{ttl: ttl, now: time.Now, m: map[string]catalogEntry{}}
+}
+
+// Describe returns Describe(ctx, db, table), from memory when it was read
+// less than TTL ago; cached says which. Errors are not remembered.
+func (c *Catalog) Describe(ctx context.Context, db Querier, table string) (cols []Column, cached bool, err error) {
+	c.mu.Lock()
+	e, ok := c.m[table]
+	c.mu.Unlock()
+	if ok && c.now().Sub(e.at) < c.ttl {
+		return e.cols, true, nil
+	}
+	cols, err = Describe(ctx, db, table)
+	if err != nil {
+		return nil, false, err
+	}
+	c.mu.Lock()
+	c.m[table] = catalogEntry{cols: cols, at: c.now()}
+	c.mu.Unlock()
+	return cols, false, nil
+}
+
+// Forget drops the table's description.
+func (c *Catalog) Forget(table string) {
+	c.mu.Lock()
+	delete(c.m, table)
+	c.mu.Unlock()
 }

@@ -185,3 +185,93 @@ func TestRowsCacheSmallWindows(t *testing.T) {
 		})
 	}
 }
+
+// A prefetched window (one unordered query, sorted here) gives the same
+// rows in the same order as a streamed one (sorted by the database), ties
+// in time included, and the same Newest as the max() query; a window
+// larger than the cache is left to stream.
+func TestPrefetchMatchesStreaming(t *testing.T) {
+	ctx := context.Background()
+	url, _ := pgtest.Schema(t)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pool.Close()
+	// Every kind of time column, rows inserted out of time order, ties in
+	// time broken by values, NULLs and NaN, and levels whose byte order
+	// differs from a natural-language collation.
+	_, err = pool.Exec(ctx, `CREATE TABLE ties (at_tz timestamptz, at_local timestamp, on_day date, level double precision, site text);
+		INSERT INTO ties
+		SELECT '2026-03-01 00:00:00.123456+00'::timestamptz + ((i * 7919) % 97) * interval '1 hour',
+		       '2026-03-01 00:00:00.5'::timestamp + ((i * 7919) % 97) * interval '1 hour',
+		       '2026-03-01'::date + ((i * 7919) % 97) / 24,
+		       CASE WHEN i % 31 = 0 THEN NULL WHEN i % 37 = 0 THEN 'NaN'::float8 ELSE (i % 5)::float8 END,
+		       (ARRAY['b', 'B', 'a', 'ä', NULL])[1 + i % 5]
+		FROM generate_series(1, 600) AS i`)
+	if err != nil {
+		t.Fatal(err)
+	}
+	from, to := time.Date(2026, 2, 1, 0, 0, 0, 0, time.UTC), time.Date(2026, 4, 1, 0, 0, 0, 0, time.UTC)
+	for _, timeCol := range []string{"at_tz", "at_local", "on_day"} {
+		need := fit.Need{Numeric: []string{"level", timeCol}, Text: []string{"site"}}
+		read := func(rows *source.Rows) []string {
+			var out []string
+			err := rows.Scan(ctx, need, func(b *fit.Block) error {
+				for r := 0; r < b.Rows; r++ {
+					out = append(out, fmt.Sprintf("%d %v %v %q", b.Line[r], b.Numeric[timeCol][r], b.Numeric["level"][r], b.Text["site"][r]))
+				}
+				return nil
+			})
+			if err != nil {
+				t.Fatal(err)
+			}
+			return out
+		}
+		open := func(t *testing.T, prefetch fit.Need, cacheRows int) *source.Rows {
+			rows, err := source.Open(ctx, pool, source.Query{Table: source.Table{Name: "ties"}, Time: timeCol,
+				From: from, To: to, BlockRows: 50, CacheRows: cacheRows, Prefetch: prefetch})
+			if err != nil {
+				t.Fatal(err)
+			}
+			t.Cleanup(rows.Close) // Close is idempotent
+			return rows
+		}
+		t.Run(timeCol, func(t *testing.T) {
+			streamed := open(t, fit.Need{}, -1)
+			want := read(streamed)
+			if len(want) != 600 {
+				t.Fatalf("streamed %d rows, want 600", len(want))
+			}
+			// Prefetch names fewer columns than the scan: the time column
+			// is added, and the scan (needing site too) streams.
+			for _, tc := range []struct {
+				name      string
+				prefetch  fit.Need
+				cacheRows int
+				cached    bool
+			}{
+				{"prefetch of every column", fit.Need{Numeric: []string{"level"}, Text: []string{"site"}}, 0, true},
+				{"prefetch of fewer columns", fit.Need{Numeric: []string{"level"}}, 0, true},
+				{"window larger than the cache", need, 599, false},
+			} {
+				rows := open(t, tc.prefetch, tc.cacheRows)
+				defer rows.Close()
+				if got := rows.CachedBlocks() >= 0; got != tc.cached {
+					t.Errorf("%s: cached after Open %v, want %v", tc.name, got, tc.cached)
+				}
+				if !rows.Newest.Equal(streamed.Newest) {
+					t.Errorf("%s: newest %v, want %v (the max() query's)", tc.name, rows.Newest, streamed.Newest)
+				}
+				if got := read(rows); strings.Join(got, "\n") != strings.Join(want, "\n") {
+					for i := range min(len(got), len(want)) {
+						if got[i] != want[i] {
+							t.Fatalf("%s: row %d is %s, want %s", tc.name, i+1, got[i], want[i])
+						}
+					}
+					t.Fatalf("%s: %d rows, want %d", tc.name, len(got), len(want))
+				}
+			}
+		})
+	}
+}
