@@ -150,7 +150,7 @@ func (a *App) connect(ctx context.Context, dsn string) (*pgxpool.Pool, error) {
 	// River's producer, notifier, elector and maintenance services, plus
 	// per running refit (2 × Workers) a lock connection and the source
 	// query.
-	cfg.MaxConns = max(cfg.MaxConns, int32(8*a.opts.Workers+10))
+	cfg.MaxConns = max(cfg.MaxConns, int32(4*a.opts.Workers+10))
 	pool, err := pgxpool.NewWithConfig(ctx, cfg)
 	if err != nil {
 		return nil, fmt.Errorf("connect: %w", err)
@@ -199,7 +199,7 @@ func migrateRiver(ctx context.Context, pool *pgxpool.Pool, schema string, log *s
 // runningRefits is how many refits run at once for workers computing at
 // once: twice as many, so that the cores stay busy while half of them wait
 // on the database (see Options.Workers).
-func runningRefits(workers int) int { return 4 * workers }
+func runningRefits(workers int) int { return 2 * workers }
 
 // newClient builds the River client: the refit worker, and one periodic
 // job per model. River enqueues periodic jobs on its elected leader only;

@@ -352,3 +352,46 @@ func TestCurveArraysKeepThePoints(t *testing.T) {
 		t.Errorf("after migrating back down the table holds\n%s\nwant\n%s", got, before)
 	}
 }
+
+// Fit documents and curve arrays are compressed with lz4 where the server
+// has it (PostgreSQL 14 or later built with lz4, as Debian's is), and back
+// to the default after a downgrade.
+func TestDocumentsCompressWithLZ4(t *testing.T) {
+	url, schema := pgtest.Schema(t)
+	if err := migrations.Up(ctxT(t), url, schema); err != nil {
+		t.Fatal(err)
+	}
+	conn := connect(t, url)
+	var lz4 bool
+	if err := conn.QueryRow(ctxT(t), `SELECT EXISTS (SELECT 1 FROM pg_settings WHERE name = 'default_toast_compression' AND 'lz4' = ANY (enumvals))`).Scan(&lz4); err != nil {
+		t.Fatal(err)
+	}
+	compression := func() string {
+		var got []string
+		rows, err := conn.Query(ctxT(t), `SELECT c.relname || '.' || a.attname || '=' || coalesce(nullif(a.attcompression::text, ''), '-')
+			FROM pg_attribute a JOIN pg_class c ON c.oid = a.attrelid JOIN pg_namespace n ON n.oid = c.relnamespace
+			WHERE n.nspname = $1 AND ((c.relname = 'fits' AND a.attname = 'document') OR (c.relname = 'fit_curves' AND a.attname IN ('x', 'fit', 'se')))
+			ORDER BY 1`, schema)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err = pgx.CollectRows(rows, pgx.RowTo[string])
+		if err != nil {
+			t.Fatal(err)
+		}
+		return strings.Join(got, " ")
+	}
+	want := "fit_curves.fit=l fit_curves.se=l fit_curves.x=l fits.document=l"
+	if !lz4 {
+		want = "fit_curves.fit=- fit_curves.se=- fit_curves.x=- fits.document=-"
+	}
+	if got := compression(); got != want {
+		t.Errorf("after Up: %s, want %s", got, want)
+	}
+	if err := migrations.Steps(ctxT(t), url, schema, -1); err != nil {
+		t.Fatal(err)
+	}
+	if got, want := compression(), "fit_curves.fit=- fit_curves.se=- fit_curves.x=- fits.document=-"; got != want {
+		t.Errorf("after going down to 5: %s, want %s", got, want)
+	}
+}

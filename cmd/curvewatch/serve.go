@@ -59,7 +59,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	var jobTimeout time.Duration
 	fl := newFlags("serve", serveHelp)
 	fl.Required(&path, "config", "FILE", "the daemon config (YAML): database, schema, listen address and models", "the daemon config (YAML) to serve")
-	fl.Int(&workers, "workers", "N", 0, "the most refits this process runs at once (0: one per CPU)")
+	fl.Int(&workers, "workers", "N", 0, "the most refits this process computes at once (0: one per CPU); twice as many are under way, so that waits on the database overlap other refits' computing")
 	fl.Duration(&jobTimeout, "job-timeout", "DURATION", daemon.DefaultJobTimeout, "the longest one refit may run; one that overruns is cancelled and recorded as failed")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err

@@ -46,7 +46,7 @@ type Query struct {
 	CacheRows int
 	// Prefetch, when it names columns, reads them at Open: a window of at
 	// most CacheRows rows is read in one unordered query, sorted here
-	// (into Scan's order) and kept, so the database does no sort and a
+	// (by time) and kept, so the database does no sort and a
 	// fit never waits on it; Newest then comes from those rows. A larger
 	// window is found out after CacheRows + 1 rows, dropped, and left to
 	// Scan to stream in order.
@@ -99,20 +99,28 @@ func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
 	}
 	// The snapshot and its statement timeout in one round trip.
 	tx, err := conn.BeginTx(ctx, pgx.TxOptions{BeginQuery: fmt.Sprintf(
-		"BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY; SET LOCAL statement_timeout = %d", q.StatementTimeout.Milliseconds())})
+		"BEGIN ISOLATION LEVEL REPEATABLE READ READ ONLY; SET LOCAL statement_timeout = %d; "+
+			// Every pass must meet rows tied in time in the same order:
+			// a sort is deterministic given its input in the same order,
+			// which a scan from the table's first block without parallel
+			// workers gives inside one snapshot.
+			"SET LOCAL synchronize_seqscans = off; SET LOCAL max_parallel_workers_per_gather = 0",
+		q.StatementTimeout.Milliseconds())})
 	if err != nil {
 		conn.Release()
 		return nil, fmt.Errorf("source %s: begin read-only transaction: %w", q.Table, err)
 	}
 	r := &Rows{q: q, table: table, tx: tx, conn: conn}
-	fail := func(err error) (*Rows, error) {
-		r.Close()
-		return nil, err
-	}
+	opened := false
+	defer func() {
+		if !opened {
+			r.Close() // an error, or a panic on its way up
+		}
+	}()
 	// Columns, in table order (the query never selects *).
 	rs, err := tx.Query(ctx, "SELECT * FROM "+table+" LIMIT 0")
 	if err != nil {
-		return fail(fmt.Errorf("source %s: %w", q.Table, err))
+		return nil, fmt.Errorf("source %s: %w", q.Table, err)
 	}
 	for _, fd := range rs.FieldDescriptions() {
 		r.columns = append(r.columns, fd.Name)
@@ -121,28 +129,30 @@ func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
 	if len(q.Prefetch.Numeric)+len(q.Prefetch.Text) > 0 && q.CacheRows > 0 {
 		ok, err := r.prefetch(ctx, q.Prefetch)
 		if err != nil {
-			return fail(err)
+			return nil, err
 		}
 		if ok {
+			opened = true
 			return r, nil
 		}
 	}
 	var newest pgtype.Timestamptz
-	err = tx.QueryRow(ctx, "SELECT max("+pgx.Identifier{q.Time}.Sanitize()+")::timestamptz FROM "+table+" WHERE "+r.predicate(), q.From, q.To).Scan(&newest)
+	err = tx.QueryRow(ctx, "SELECT max("+pgx.Identifier{q.Time}.Sanitize()+")::timestamptz FROM "+table+" WHERE "+r.predicate("$1", "$2"), q.From, q.To).Scan(&newest)
 	if err != nil {
-		return fail(fmt.Errorf("source %s: find the window's newest row: %w", q.Table, err))
+		return nil, fmt.Errorf("source %s: find the window's newest row: %w", q.Table, err)
 	}
 	if newest.Valid {
 		r.Newest = newest.Time
 	}
+	opened = true
 	return r, nil
 }
 
-// predicate is the window condition with $1 = From and $2 = To, plus the
-// config's predicate.
-func (r *Rows) predicate() string {
+// predicate is the window condition from and to (SQL: the parameters $1
+// and $2, or literals), plus the config's predicate.
+func (r *Rows) predicate(from, to string) string {
 	t := pgx.Identifier{r.q.Time}.Sanitize()
-	p := t + " >= $1 AND " + t + " < $2"
+	p := t + " >= " + from + " AND " + t + " < " + to
 	if strings.TrimSpace(r.q.Where) != "" {
 		// On lines of its own, so a trailing -- comment cannot swallow the
 		// closing parenthesis.
@@ -167,10 +177,11 @@ func (r *Rows) Close() {
 // Columns lists the table's columns.
 func (r *Rows) Columns() []string { return append([]string(nil), r.columns...) }
 
-// Scan streams the window's rows in time order, ties in the order of the
-// other columns read (numbers ascending with NaN and NULL last, then text
-// byte by byte), so that every pass, cached or streamed, sees the same
-// rows in the same order. Numeric columns are cast to double precision
+// Scan streams the window's rows in time order, so that every pass sees
+// the same rows in the same order: rows tied in time come in an order
+// fixed inside the snapshot (by the database when streamed; by the other
+// columns' values, see sortedOrder, when prefetched). Numeric columns are
+// cast to double precision
 // (NULL → NaN, which the engine drops and counts); text columns to text
 // (NULL → ""); the time column, when asked for as a number, is seconds
 // since 1970.
@@ -204,11 +215,9 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 		cache = append(cache, copyBlock(b))
 	}
 	cols := r.readColumns(need)
-	sql := "SELECT " + strings.Join(cols.sel, ", ") + " FROM " + r.table + " WHERE " + r.predicate() +
-		" ORDER BY " + strings.Join(cols.order, ", ")
 	b := &fit.Block{Numeric: map[string][]float64{}, Text: map[string][]string{}}
 	var ordinal int64
-	err := r.read(ctx, sql, need, 0, func(n int, num [][]float64, txt [][]string) error {
+	err := r.copyOut(ctx, cols, "ORDER BY "+pgx.Identifier{r.q.Time}.Sanitize(), need, r.q.BlockRows, func(n int, num [][]float64, txt [][]string) error {
 		b.Rows, b.Line = n, b.Line[:0]
 		for range n {
 			ordinal++
@@ -240,7 +249,7 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 
 // prefetch reads need's columns (and the time column) for the whole window
 // in one unordered query, and, when the window has at most CacheRows rows,
-// sorts them into Scan's order, keeps them as the cache and sets Newest
+// sorts them by time, keeps them as the cache and sets Newest
 // from them. It reports false, keeping nothing, for a larger window.
 func (r *Rows) prefetch(ctx context.Context, need fit.Need) (bool, error) {
 	if !slices.Contains(need.Numeric, r.q.Time) {
@@ -248,14 +257,13 @@ func (r *Rows) prefetch(ctx context.Context, need fit.Need) (bool, error) {
 	}
 	cols := r.readColumns(need)
 	limit := r.q.CacheRows + 1
-	sql := "SELECT " + strings.Join(cols.sel, ", ") + " FROM " + r.table + " WHERE " + r.predicate() +
-		" LIMIT " + strconv.Itoa(limit)
 	var num [][]float64
 	var txt [][]string
 	n := 0
-	err := r.read(ctx, sql, need, limit, func(rows int, nu [][]float64, tx [][]string) error {
-		// One call with every row: read collects them for a prefetch.
-		n, num, txt = rows, nu, tx
+	err := r.copyOut(ctx, cols, "LIMIT "+strconv.Itoa(limit), need, limit, func(rows int, nu [][]float64, tx [][]string) error {
+		// One call with every row (the block is the limit): the column
+		// slices are not reused, but the lists of them are.
+		n, num, txt = rows, slices.Clone(nu), slices.Clone(tx)
 		return nil
 	})
 	if err != nil {
@@ -296,17 +304,38 @@ func (r *Rows) prefetch(ctx context.Context, need fit.Need) (bool, error) {
 	return true, nil
 }
 
-// sortedOrder returns the permutation that puts the rows in Scan's order:
-// by the time column (numeric column timeAt), then by the other numeric
-// columns (NaN and NULL last, tied), then by the text columns byte by byte
-// (NULL as "") — the order of the ORDER BY readColumns writes.
+// sortedOrder returns the permutation that puts prefetched rows in time
+// order (numeric column timeAt), rows tied in time by the other numeric
+// columns (NaN, which NULL becomes, last) and then by the text columns
+// byte by byte: an order that depends on the rows alone, not on where
+// they lie in the table.
 func sortedOrder(n int, num [][]float64, txt [][]string, timeAt int) []int32 {
 	perm := make([]int32, n)
+	if n == 0 {
+		return perm
+	}
 	for i := range perm {
 		perm[i] = int32(i)
 	}
-	slices.SortStableFunc(perm, func(a, b int32) int {
-		if c := cmpNaNLast(num[timeAt][a], num[timeAt][b]); c != 0 {
+	// Rows usually arrive in time order or its reverse (the table's
+	// physical order): with no ties in time that is the whole sort.
+	at := num[timeAt]
+	rising, falling := true, true
+	for i := 1; i < n && (rising || falling); i++ {
+		rising = rising && at[i-1] < at[i]
+		falling = falling && at[i-1] > at[i]
+	}
+	switch {
+	case rising:
+		return perm
+	case falling:
+		slices.Reverse(perm)
+		return perm
+	}
+	// Every column takes part, so only rows equal in all of them tie, and
+	// their order does not matter.
+	slices.SortFunc(perm, func(a, b int32) int {
+		if c := cmpNaNLast(at[a], at[b]); c != 0 {
 			return c
 		}
 		for j := range num {
@@ -327,8 +356,7 @@ func sortedOrder(n int, num [][]float64, txt [][]string, timeAt int) []int32 {
 	return perm
 }
 
-// cmpNaNLast orders numbers ascending with NaN after every number, as
-// PostgreSQL orders double precision (Scan's ORDER BY reads NULL as NaN).
+// cmpNaNLast orders numbers ascending with NaN after every number.
 func cmpNaNLast(x, y float64) int {
 	switch xn, yn := math.IsNaN(x), math.IsNaN(y); {
 	case xn && yn:
@@ -349,14 +377,12 @@ func epochTime(s float64) time.Time {
 	return time.Unix(int64(sec), int64(us)*1000).UTC()
 }
 
-// selection is the SQL for reading a need: the select list (numeric
-// columns, then text) and the ORDER BY that puts the rows in Scan's order.
-type selection struct{ sel, order []string }
+// selection is the select list for reading a need: numeric columns, then
+// text.
+type selection struct{ sel []string }
 
 func (r *Rows) readColumns(need fit.Need) selection {
 	var s selection
-	timeOrder := pgx.Identifier{r.q.Time}.Sanitize()
-	var rest []string
 	for _, c := range need.Numeric {
 		id := pgx.Identifier{c}.Sanitize()
 		if c == r.q.Time {
@@ -366,98 +392,47 @@ func (r *Rows) readColumns(need fit.Need) selection {
 			s.sel = append(s.sel, "date_part('epoch', "+id+"::timestamptz)")
 		} else {
 			s.sel = append(s.sel, id+"::float8")
-			// NULL and NaN tie, as they do once read (both NaN).
-			rest = append(rest, "coalesce("+id+"::float8, 'NaN')")
 		}
 	}
 	for _, c := range need.Text {
-		id := pgx.Identifier{c}.Sanitize()
-		s.sel = append(s.sel, id+"::text")
-		rest = append(rest, "coalesce("+id+`::text, '') COLLATE "C"`)
+		s.sel = append(s.sel, pgx.Identifier{c}.Sanitize()+"::text")
 	}
-	if len(s.sel) == 0 {
-		s.sel = []string{"1"}
-	}
-	s.order = append([]string{timeOrder}, rest...)
 	return s
 }
 
-// read runs sql (which selects need's numeric columns as float8, then its
-// text columns as text) and hands fn the values of each block of BlockRows
-// rows (the slices are reused once fn returns). With limit > 0 (a
-// prefetch) it reads at most limit rows and hands them all to fn at once,
-// in slices of their own.
-func (r *Rows) read(ctx context.Context, sql string, need fit.Need, limit int, fn func(rows int, num [][]float64, txt [][]string) error) error {
-	rows, err := r.tx.Query(ctx, sql, r.q.From, r.q.To)
-	if err != nil {
+// copyOut runs SELECT cols FROM the window [tail] as a binary COPY and
+// hands fn the values of each block of block rows (see columnReader). The
+// window's bounds are written into the SQL as literals (COPY takes no
+// parameters); they are times curvewatch formats itself.
+func (r *Rows) copyOut(ctx context.Context, cols selection, tail string, need fit.Need, block int, fn func(rows int, num [][]float64, txt [][]string) error) error {
+	sql := "COPY (SELECT " + strings.Join(cols.sel, ", ") + " FROM " + r.table +
+		" WHERE " + r.predicate(timeLiteral(r.q.From), timeLiteral(r.q.To)) + "\n" + tail + ") TO STDOUT (FORMAT binary)"
+	cr := newColumnReader(len(need.Numeric), len(need.Text), block, fn)
+	if _, err := r.tx.Conn().PgConn().CopyTo(ctx, cr, sql); err != nil {
 		return fmt.Errorf("source %s: %w", r.q.Table, err)
 	}
-	defer rows.Close()
-	nNum, nText := len(need.Numeric), len(need.Text)
-	block := r.q.BlockRows
-	if limit > 0 {
-		block = limit
-	}
-	num := make([][]float64, nNum)
-	txt := make([][]string, nText)
-	for i := range num {
-		num[i] = make([]float64, 0, min(block, 4096))
-	}
-	for i := range txt {
-		txt[i] = make([]string, 0, min(block, 4096))
-	}
-	f8 := make([]pgtype.Float8, nNum)
-	tx := make([]pgtype.Text, nText)
-	dest := make([]any, 0, nNum+nText)
-	for i := range f8 {
-		dest = append(dest, &f8[i])
-	}
-	for i := range tx {
-		dest = append(dest, &tx[i])
-	}
-	n, inBlock := 0, 0
-	for rows.Next() {
-		if len(dest) > 0 {
-			if err := rows.Scan(dest...); err != nil {
-				return fmt.Errorf("source %s: row %d: %w", r.q.Table, n+1, err)
-			}
+	if err := cr.Close(); err != nil {
+		if cr.stop != nil {
+			return err // fn's own error, as it gave it
 		}
-		n++
-		inBlock++
-		for i := range f8 {
-			v := math.NaN()
-			if f8[i].Valid {
-				v = f8[i].Float64
-			}
-			num[i] = append(num[i], v)
-		}
-		for i := range tx {
-			s := ""
-			if tx[i].Valid {
-				s = tx[i].String
-			}
-			txt[i] = append(txt[i], s)
-		}
-		if limit <= 0 && inBlock == block {
-			if err := fn(inBlock, num, txt); err != nil {
-				return err
-			}
-			inBlock = 0
-			for i := range num {
-				num[i] = num[i][:0]
-			}
-			for i := range txt {
-				txt[i] = txt[i][:0]
-			}
-		}
-	}
-	if err := rows.Err(); err != nil {
 		return fmt.Errorf("source %s: %w", r.q.Table, err)
-	}
-	if inBlock > 0 || limit > 0 {
-		return fn(inBlock, num, txt)
 	}
 	return nil
+}
+
+// timeLiteral writes t as a timestamptz literal, microseconds included,
+// within PostgreSQL's range of years 1 to 9999 (a window bound outside it
+// selects the same rows as the bound at its edge).
+func timeLiteral(t time.Time) string {
+	lo, hi := time.Date(1, 1, 1, 0, 0, 0, 0, time.UTC), time.Date(9999, 12, 31, 23, 59, 59, 999999000, time.UTC)
+	t = t.UTC()
+	if t.Before(lo) {
+		t = lo
+	}
+	if t.After(hi) {
+		t = hi
+	}
+	return "'" + t.Format("2006-01-02T15:04:05.999999Z") + "'::timestamptz"
 }
 
 // copyBlock copies a block whose slices are about to be reused.

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -186,10 +187,10 @@ func TestRowsCacheSmallWindows(t *testing.T) {
 	}
 }
 
-// A prefetched window (one unordered query, sorted here) gives the same
-// rows in the same order as a streamed one (sorted by the database), ties
-// in time included, and the same Newest as the max() query; a window
-// larger than the cache is left to stream.
+// A prefetched window (one unordered query, sorted here) holds the same
+// rows as a streamed one (sorted by the database), in time order, ties in
+// time included; each path gives the same order on every pass; and Newest
+// is the max() query's. A window larger than the cache is left to stream.
 func TestPrefetchMatchesStreaming(t *testing.T) {
 	ctx := context.Background()
 	url, _ := pgtest.Schema(t)
@@ -199,8 +200,8 @@ func TestPrefetchMatchesStreaming(t *testing.T) {
 	}
 	defer pool.Close()
 	// Every kind of time column, rows inserted out of time order, ties in
-	// time broken by values, NULLs and NaN, and levels whose byte order
-	// differs from a natural-language collation.
+	// time, NULLs and NaN, and levels whose byte order differs from a
+	// natural-language collation.
 	_, err = pool.Exec(ctx, `CREATE TABLE ties (at_tz timestamptz, at_local timestamp, on_day date, level double precision, site text);
 		INSERT INTO ties
 		SELECT '2026-03-01 00:00:00.123456+00'::timestamptz + ((i * 7919) % 97) * interval '1 hour',
@@ -215,11 +216,16 @@ func TestPrefetchMatchesStreaming(t *testing.T) {
 	from, to := time.Date(2026, 2, 1, 0, 0, 0, 0, time.UTC), time.Date(2026, 4, 1, 0, 0, 0, 0, time.UTC)
 	for _, timeCol := range []string{"at_tz", "at_local", "on_day"} {
 		need := fit.Need{Numeric: []string{"level", timeCol}, Text: []string{"site"}}
-		read := func(rows *source.Rows) []string {
+		// read returns the rows as lines (time first) and the lines' line
+		// numbers in order.
+		read := func(t *testing.T, rows *source.Rows) []string {
 			var out []string
 			err := rows.Scan(ctx, need, func(b *fit.Block) error {
 				for r := 0; r < b.Rows; r++ {
-					out = append(out, fmt.Sprintf("%d %v %v %q", b.Line[r], b.Numeric[timeCol][r], b.Numeric["level"][r], b.Text["site"][r]))
+					if b.Line[r] != int64(len(out)+1) {
+						t.Fatalf("row %d has line %d", len(out)+1, b.Line[r])
+					}
+					out = append(out, fmt.Sprintf("%016.6f %v %q", b.Numeric[timeCol][r], b.Numeric["level"][r], b.Text["site"][r]))
 				}
 				return nil
 			})
@@ -234,24 +240,28 @@ func TestPrefetchMatchesStreaming(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			t.Cleanup(rows.Close) // Close is idempotent
 			return rows
 		}
 		t.Run(timeCol, func(t *testing.T) {
 			streamed := open(t, fit.Need{}, -1)
-			want := read(streamed)
-			if len(want) != 600 {
-				t.Fatalf("streamed %d rows, want 600", len(want))
+			defer streamed.Close()
+			want := read(t, streamed)
+			if again := read(t, streamed); strings.Join(again, "\n") != strings.Join(want, "\n") {
+				t.Fatal("two streamed passes differ in order")
 			}
-			// Prefetch names fewer columns than the scan: the time column
-			// is added, and the scan (needing site too) streams.
+			if len(want) != 600 || !timesRise(want) {
+				t.Fatalf("streamed %d rows, not in time order", len(want))
+			}
+			wantSet := slices.Sorted(slices.Values(want))
 			for _, tc := range []struct {
 				name      string
 				prefetch  fit.Need
 				cacheRows int
 				cached    bool
 			}{
+				// The time column is added to a prefetch that lacks it.
 				{"prefetch of every column", fit.Need{Numeric: []string{"level"}, Text: []string{"site"}}, 0, true},
+				// The scan needs site too: it streams.
 				{"prefetch of fewer columns", fit.Need{Numeric: []string{"level"}}, 0, true},
 				{"window larger than the cache", need, 599, false},
 			} {
@@ -263,15 +273,66 @@ func TestPrefetchMatchesStreaming(t *testing.T) {
 				if !rows.Newest.Equal(streamed.Newest) {
 					t.Errorf("%s: newest %v, want %v (the max() query's)", tc.name, rows.Newest, streamed.Newest)
 				}
-				if got := read(rows); strings.Join(got, "\n") != strings.Join(want, "\n") {
-					for i := range min(len(got), len(want)) {
-						if got[i] != want[i] {
-							t.Fatalf("%s: row %d is %s, want %s", tc.name, i+1, got[i], want[i])
-						}
-					}
-					t.Fatalf("%s: %d rows, want %d", tc.name, len(got), len(want))
+				got := read(t, rows)
+				if again := read(t, rows); strings.Join(again, "\n") != strings.Join(got, "\n") {
+					t.Errorf("%s: two passes differ in order", tc.name)
+				}
+				if !timesRise(got) {
+					t.Errorf("%s: rows not in time order", tc.name)
+				}
+				if gotSet := slices.Sorted(slices.Values(got)); strings.Join(gotSet, "\n") != strings.Join(wantSet, "\n") {
+					t.Errorf("%s: %d rows, not the streamed ones", tc.name, len(got))
 				}
 			}
 		})
+	}
+}
+
+// timesRise reports whether the lines' leading times never fall.
+func timesRise(lines []string) bool {
+	for i := 1; i < len(lines); i++ {
+		if strings.Fields(lines[i])[0] < strings.Fields(lines[i-1])[0] {
+			return false
+		}
+	}
+	return true
+}
+
+// An empty window prefetches as an empty cache with no newest row; a
+// table the window cannot be read from (a cast that fails) returns its
+// connection to the pool.
+func TestPrefetchEmptyAndFailingWindows(t *testing.T) {
+	ctx := context.Background()
+	url, _ := pgtest.Schema(t)
+	pool, err := pgxpool.New(ctx, url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer pool.Close()
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	readings(t, ctx, pool, 20, t0)
+	rows, err := source.Open(ctx, pool, source.Query{Table: source.Table{Name: "sonde_readings"}, Time: "observed_at",
+		From: t0.Add(-48 * time.Hour), To: t0, Prefetch: fit.Need{Numeric: []string{"water_temp"}, Text: []string{"site"}}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if rows.CachedBlocks() != 0 || !rows.Newest.IsZero() {
+		t.Errorf("empty window: %d cached blocks, newest %v; want 0 and none", rows.CachedBlocks(), rows.Newest)
+	}
+	n := 0
+	if err := rows.Scan(ctx, fit.Need{Numeric: []string{"water_temp"}}, func(b *fit.Block) error { n += b.Rows; return nil }); err != nil || n != 0 {
+		t.Errorf("empty window scanned %d rows, %v", n, err)
+	}
+	rows.Close()
+	// site is text: as a number its cast fails in the database.
+	for range 2 * int(pool.Config().MaxConns) {
+		_, err := source.Open(ctx, pool, source.Query{Table: source.Table{Name: "sonde_readings"}, Time: "observed_at",
+			From: t0, To: t0.Add(48 * time.Hour), Prefetch: fit.Need{Numeric: []string{"site"}}})
+		if err == nil || !strings.Contains(err.Error(), "sonde_readings") {
+			t.Fatalf("a failing cast: %v, want an error naming the table", err)
+		}
+	}
+	if got := pool.Stat().AcquiredConns(); got != 0 {
+		t.Errorf("%d connections still held after failed opens", got)
 	}
 }
