@@ -51,6 +51,12 @@ const fleetSpec = "name: fleet\nresponse: y\nfamily: gaussian\nterms:\n  - curve
 //   - refit_s_per_core: the sum of the fits' recorded durations (pull, fit,
 //     compare, record) divided by the cores, to tell the refits' own
 //     overhead from time lost between jobs.
+//   - db_cpu_s and db_cpu_ms_per_model: the CPU the PostgreSQL server used
+//     from Start to the last fit, when it runs on this machine (it shares
+//     the cores with the daemon here), and
+//     startup_wall_less_db_over_purefit: (startup_wall_s × cores − db_cpu_s)
+//     ÷ cores ÷ purefit_s_per_core, an estimate of the ratio with the
+//     database on machines of its own.
 //
 // It is slow (the data alone is F × 10,000 rows), so it runs only with
 // CURVEWATCH_FLEET=1, and once: use -benchtime 1x (bench/fleet.sh).
@@ -198,6 +204,7 @@ func BenchmarkFleet(b *testing.B) {
 			f.Close()
 		}()
 	}
+	dbCPU0, dbCPUOK := serverCPU(ctx, pool)
 	started := time.Now()
 	for _, a := range apps {
 		if err := a.Start(ctx); err != nil {
@@ -234,6 +241,7 @@ func BenchmarkFleet(b *testing.B) {
 		time.Sleep(100 * time.Millisecond)
 	}
 	startupWall := time.Since(started)
+	dbCPU1, dbCPUOK1 := serverCPU(ctx, pool)
 	b.StopTimer()
 
 	var bad int
@@ -261,6 +269,19 @@ func BenchmarkFleet(b *testing.B) {
 	b.ReportMetric(refits/float64(cores), "refit_s_per_core")
 	b.Logf("slot wall %.2f s (%.2f s from Start), pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); the refits' own durations %.2f s per core",
 		wall, startupWall.Seconds(), pureFitPerCore, wall/pureFitPerCore, refits/float64(cores))
+	// PostgreSQL shares these cores here. When its processes are visible
+	// (a local server), its CPU time over the daemons' phase is reported,
+	// and so is the ratio with that time taken off the cores: an estimate
+	// of the ratio with the database on machines of its own.
+	if dbCPUOK && dbCPUOK1 {
+		db := dbCPU1 - dbCPU0
+		b.ReportMetric(db, "db_cpu_s")
+		b.ReportMetric(1000*db/float64(models), "db_cpu_ms_per_model")
+		rest := (startupWall.Seconds()*float64(cores) - db) / float64(cores)
+		b.ReportMetric(rest/pureFitPerCore, "startup_wall_less_db_over_purefit")
+		b.Logf("the database used %.2f s of CPU (%.1f ms per model); from Start, with it taken off the cores: %.2f s per core, %.2f × the pure fits per core",
+			db, 1000*db/float64(models), rest, rest/pureFitPerCore)
+	}
 }
 
 // makeFleetTable fills one source table with every model's rows: sensor k

@@ -1,0 +1,79 @@
+package daemon
+
+import (
+	"context"
+	"fmt"
+	"os"
+	"strconv"
+	"strings"
+
+	"github.com/jackc/pgx/v5/pgxpool"
+)
+
+// serverCPU reads the CPU time the PostgreSQL server behind pool has used
+// so far, in seconds: its postmaster's own and its reaped children's, plus
+// every live child's (backends and background processes). It works only
+// when the server runs on this machine and /proc shows its processes
+// (Linux), and reports ok = false otherwise. The fleet benchmark uses it
+// to tell the database's share of the shared cores from the daemon's.
+func serverCPU(ctx context.Context, pool *pgxpool.Pool) (seconds float64, ok bool) {
+	var backend int
+	if err := pool.QueryRow(ctx, `SELECT pg_backend_pid()`).Scan(&backend); err != nil {
+		return 0, false
+	}
+	// A backend's parent is the postmaster.
+	be, _, ok := procStat(backend)
+	if !ok {
+		return 0, false
+	}
+	postmaster := be.parent
+	ents, err := os.ReadDir("/proc")
+	if err != nil {
+		return 0, false
+	}
+	const ticks = 100.0 // USER_HZ, 100 on every Linux this runs on
+	var total uint64
+	for _, e := range ents {
+		pid, err := strconv.Atoi(e.Name())
+		if err != nil {
+			continue
+		}
+		st, children, ok := procStat(pid)
+		switch {
+		case !ok:
+		case pid == postmaster:
+			total += st.cpu + children
+		case st.parent == postmaster:
+			total += st.cpu
+		}
+	}
+	return float64(total) / ticks, true
+}
+
+type procInfo struct {
+	parent int
+	cpu    uint64 // utime + stime, in clock ticks
+}
+
+// procStat reads /proc/pid/stat: the parent, the process's CPU ticks and
+// its reaped children's.
+func procStat(pid int) (info procInfo, children uint64, ok bool) {
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/stat", pid))
+	if err != nil {
+		return info, 0, false
+	}
+	s := string(b)
+	// The command name, in parentheses, may hold spaces.
+	f := strings.Fields(s[strings.LastIndexByte(s, ')')+1:])
+	if len(f) < 15 {
+		return info, 0, false
+	}
+	num := func(i int) uint64 { v, _ := strconv.ParseUint(f[i], 10, 64); return v }
+	parent, err := strconv.Atoi(f[1])
+	if err != nil {
+		return info, 0, false
+	}
+	// Fields after the name: state, ppid, …, utime (11), stime (12),
+	// cutime (13), cstime (14).
+	return procInfo{parent: parent, cpu: num(11) + num(12)}, num(13) + num(14), true
+}
