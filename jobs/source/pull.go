@@ -277,31 +277,43 @@ func (r *Rows) prefetch(ctx context.Context, need fit.Need) (bool, error) {
 	if n > 0 {
 		r.Newest = epochTime(num[timeAt][perm[n-1]])
 	}
+	// Columns in time order (as read, when they already are), then cut
+	// into blocks that share them.
+	if !slices.IsSorted(perm) {
+		for j := range num {
+			num[j] = gather(num[j], perm)
+		}
+		for j := range txt {
+			txt[j] = gather(txt[j], perm)
+		}
+	}
+	lines := make([]int64, n)
+	for i := range lines {
+		lines[i] = int64(i + 1)
+	}
 	r.cache, r.cacheNeed = []*fit.Block{}, need
 	for start := 0; start < n; start += r.q.BlockRows {
 		end := min(start+r.q.BlockRows, n)
-		b := &fit.Block{Rows: end - start, Line: make([]int64, end-start),
+		b := &fit.Block{Rows: end - start, Line: lines[start:end:end],
 			Numeric: make(map[string][]float64, len(need.Numeric)), Text: make(map[string][]string, len(need.Text))}
-		for i := range b.Line {
-			b.Line[i] = int64(start + i + 1)
-		}
 		for j, c := range need.Numeric {
-			col := make([]float64, end-start)
-			for i, p := range perm[start:end] {
-				col[i] = num[j][p]
-			}
-			b.Numeric[c] = col
+			b.Numeric[c] = num[j][start:end:end]
 		}
 		for j, c := range need.Text {
-			col := make([]string, end-start)
-			for i, p := range perm[start:end] {
-				col[i] = txt[j][p]
-			}
-			b.Text[c] = col
+			b.Text[c] = txt[j][start:end:end]
 		}
 		r.cache = append(r.cache, b)
 	}
 	return true, nil
+}
+
+// gather returns v's elements in the order perm gives.
+func gather[T any](v []T, perm []int32) []T {
+	out := make([]T, len(perm))
+	for i, p := range perm {
+		out[i] = v[p]
+	}
+	return out
 }
 
 // sortedOrder returns the permutation that puts prefetched rows in time
