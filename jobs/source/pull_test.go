@@ -16,6 +16,18 @@ import (
 	"github.com/curvewatch/curvewatch/jobs/source"
 )
 
+// newPool connects to a schema of the test's own, closed when it ends.
+func newPool(t *testing.T) *pgxpool.Pool {
+	t.Helper()
+	url, _ := pgtest.Schema(t)
+	pool, err := pgxpool.New(context.Background(), url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(pool.Close)
+	return pool
+}
+
 // readings creates a sonde table in the test schema with n rows an hour
 // apart from t0 (invented data), some with NULLs.
 func readings(t *testing.T, ctx context.Context, pool *pgxpool.Pool, n int, t0 time.Time) {
@@ -42,12 +54,7 @@ func readings(t *testing.T, ctx context.Context, pool *pgxpool.Pool, n int, t0 t
 
 func TestRowsStreamAWindowInOneSnapshot(t *testing.T) {
 	ctx := context.Background()
-	url, _ := pgtest.Schema(t)
-	pool, err := pgxpool.New(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer pool.Close()
+	pool := newPool(t)
 	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	readings(t, ctx, pool, 500, t0)
 
@@ -115,12 +122,7 @@ func TestRowsStreamAWindowInOneSnapshot(t *testing.T) {
 // streams every pass.
 func TestRowsCacheSmallWindows(t *testing.T) {
 	ctx := context.Background()
-	url, _ := pgtest.Schema(t)
-	pool, err := pgxpool.New(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer pool.Close()
+	pool := newPool(t)
 	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	readings(t, ctx, pool, 300, t0)
 	need := fit.Need{Numeric: []string{"observed_at", "water_temp", "flow"}, Text: []string{"site"}}
@@ -193,16 +195,11 @@ func TestRowsCacheSmallWindows(t *testing.T) {
 // is the max() query's. A window larger than the cache is left to stream.
 func TestPrefetchMatchesStreaming(t *testing.T) {
 	ctx := context.Background()
-	url, _ := pgtest.Schema(t)
-	pool, err := pgxpool.New(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer pool.Close()
+	pool := newPool(t)
 	// Every kind of time column, rows inserted out of time order, ties in
 	// time, NULLs and NaN, and levels whose byte order differs from a
 	// natural-language collation.
-	_, err = pool.Exec(ctx, `CREATE TABLE ties (at_tz timestamptz, at_local timestamp, on_day date, level double precision, site text);
+	_, err := pool.Exec(ctx, `CREATE TABLE ties (at_tz timestamptz, at_local timestamp, on_day date, level double precision, site text);
 		INSERT INTO ties
 		SELECT '2026-03-01 00:00:00.123456+00'::timestamptz + ((i * 7919) % 97) * interval '1 hour',
 		       '2026-03-01 00:00:00.5'::timestamp + ((i * 7919) % 97) * interval '1 hour',
@@ -303,12 +300,7 @@ func timesRise(lines []string) bool {
 // connection to the pool.
 func TestPrefetchEmptyAndFailingWindows(t *testing.T) {
 	ctx := context.Background()
-	url, _ := pgtest.Schema(t)
-	pool, err := pgxpool.New(ctx, url)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer pool.Close()
+	pool := newPool(t)
 	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
 	readings(t, ctx, pool, 20, t0)
 	rows, err := source.Open(ctx, pool, source.Query{Table: source.Table{Name: "sonde_readings"}, Time: "observed_at",
