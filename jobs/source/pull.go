@@ -45,11 +45,11 @@ type Query struct {
 	// pass, so memory stays flat however large the window.
 	CacheRows int
 	// Prefetch, when it names columns, reads them at Open: a window of at
-	// most CacheRows rows is read in one unordered query, sorted here
-	// (by time) and kept, so the database does no sort and a
-	// fit never waits on it; Newest then comes from those rows. A larger
-	// window is found out after CacheRows + 1 rows, dropped, and left to
-	// Scan to stream in order.
+	// most CacheRows rows is read in one unordered query, sorted here by
+	// time and kept, so the database does no sort and a fit never waits
+	// on it; Newest then comes from those rows. A larger window is found
+	// out after CacheRows + 1 rows, dropped, and left to Scan to stream in
+	// order.
 	Prefetch fit.Need
 }
 
@@ -177,14 +177,14 @@ func (r *Rows) Close() {
 // Columns lists the table's columns.
 func (r *Rows) Columns() []string { return append([]string(nil), r.columns...) }
 
-// Scan streams the window's rows in time order, so that every pass sees
-// the same rows in the same order: rows tied in time come in an order
+// Scan delivers the window's rows in time order, from memory when they are
+// cached and streamed from the database otherwise, so that every pass
+// sees the same rows in the same order: rows tied in time come in an order
 // fixed inside the snapshot (by the database when streamed; by the other
 // columns' values, see sortedOrder, when prefetched). Numeric columns are
-// cast to double precision
-// (NULL → NaN, which the engine drops and counts); text columns to text
-// (NULL → ""); the time column, when asked for as a number, is seconds
-// since 1970.
+// cast to double precision (NULL → NaN, which the engine drops and
+// counts); text columns to text (NULL → ""); the time column, when asked
+// for as a number, is seconds since 1970.
 func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) error) error {
 	if r.tx == nil {
 		return errors.New("source: Scan after Close")
@@ -249,8 +249,8 @@ func (r *Rows) Scan(ctx context.Context, need fit.Need, fn func(*fit.Block) erro
 
 // prefetch reads need's columns (and the time column) for the whole window
 // in one unordered query, and, when the window has at most CacheRows rows,
-// sorts them by time, keeps them as the cache and sets Newest
-// from them. It reports false, keeping nothing, for a larger window.
+// sorts them by time, keeps them as the cache and sets Newest from them.
+// It reports false, keeping nothing, for a larger window.
 func (r *Rows) prefetch(ctx context.Context, need fit.Need) (bool, error) {
 	if !slices.Contains(need.Numeric, r.q.Time) {
 		need.Numeric = append(slices.Clip(need.Numeric), r.q.Time)
