@@ -4,6 +4,12 @@
 # one daemon with a worker per core. Prints the slot's wall time against the
 # sum of the pure fit times divided by the cores (target ≤ 1.2), and, for a
 # local server, its CPU per model and the ratio with that CPU taken off.
+#
+# CURVEWATCH_FLEET_LAYOUT=split pins the local server's processes to the
+# last CPU and the benchmark to the others (needs taskset and the right to
+# re-pin the server, e.g. root): the database then has a core of its own, as
+# on a machine of its own, and "the cores" are the daemon's. The default,
+# shared, lets the server and the daemon share every core.
 # Needs a PostgreSQL URL in CURVEWATCH_TEST_DATABASE_URL (default: the
 # machine's local server, database test); the benchmark makes and drops a
 # schema of its own there.
@@ -12,20 +18,43 @@ cd "$(dirname "$0")/.."
 export CURVEWATCH_TEST_DATABASE_URL=${CURVEWATCH_TEST_DATABASE_URL:-postgres://postgres@127.0.0.1:5432/test?sslmode=disable}
 export CURVEWATCH_FLEET=1
 export CURVEWATCH_FLEET_MODELS=${CURVEWATCH_FLEET_MODELS:-1000}
+cpus=$(nproc --all)
+layout=${CURVEWATCH_FLEET_LAYOUT:-shared}
+pin=()
+# pin_server CPUS: every process of the local server (the postmaster and its
+# children; new backends inherit the postmaster's CPUs) onto CPUS.
+pin_server() {
+  local dir pm p
+  dir=$(psql "$CURVEWATCH_TEST_DATABASE_URL" -XAtc 'SHOW data_directory') || return 1
+  pm=$(head -1 "$dir/postmaster.pid") || return 1
+  for p in "$pm" $(pgrep -P "$pm"); do taskset -a -p -c "$1" "$p" >/dev/null || return 1; done
+}
+case $layout in
+  shared) ;;
+  split)
+    if [ "$cpus" -lt 2 ]; then echo "fleet.sh: the split layout needs 2 CPUs or more" >&2; exit 2; fi
+    pin_server "$((cpus - 1))" || { echo "fleet.sh: could not pin the database server to CPU $((cpus - 1)) (is it local, and may this user re-pin it?)" >&2; exit 2; }
+    trap 'pin_server "0-$((cpus - 1))" || echo "fleet.sh: could not give the database server its CPUs back" >&2' EXIT
+    pin=(taskset -c "0-$((cpus - 2))")
+    echo "layout: the database server on CPU $((cpus - 1)), the benchmark on CPUs 0-$((cpus - 2))"
+    ;;
+  *) echo "fleet.sh: CURVEWATCH_FLEET_LAYOUT=$layout: want shared or split" >&2; exit 2 ;;
+esac
 # One daemon, then two daemons (replicas) on the same fleet: throughput in
 # models per second, and the ratio of the two.
 run() {
-  CURVEWATCH_FLEET_REPLICAS=$1 go test ./daemon/ -run '^$' -bench BenchmarkFleet -benchtime 1x -timeout 2h -v 2>&1
+  CURVEWATCH_FLEET_REPLICAS=$1 "${pin[@]}" go test ./daemon/ -run '^$' -bench BenchmarkFleet -benchtime 1x -timeout 2h -v 2>&1
 }
 declare -A rate
 for replicas in 1 ${CURVEWATCH_FLEET_MORE_REPLICAS-2}; do
   out=$(run "$replicas") || { printf '%s\n' "$out"; exit 1; }
-  printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet-' || true
-  line=$(printf '%s\n' "$out" | awk -v r="$replicas" '/^BenchmarkFleet-/ {
+  printf '%s\n' "$out" | grep -E 'fleet_bench_test|^BenchmarkFleet' || true
+  line=$(printf '%s\n' "$out" | awk -v r="$replicas" -v layout="$layout" '/^BenchmarkFleet(-[0-9]+)?[ \t]/ {
     for (i = 1; i <= NF; i++) m[$i] = $(i-1)
-    printf "%s replica(s), fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core; %.1f models/s; floor (pure fits, a goroutine per core) %.2f",
-      r, ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"], m["models_per_s"], m["parallel_pure_over_purefit"]
-    if ("db_cpu_s" in m) printf "; the local PostgreSQL used %.1f ms of CPU per model, and without it the ratio (from Start) would be %.2f", m["db_cpu_ms_per_model"], m["startup_wall_less_db_over_purefit"]
+    printf "%s layout, %s replica(s), fleet of %s models: slot wall %.2f s, pure fits %.2f s per core: ratio %.2f (target ≤ 1.2); refits %.2f s per core; %.1f models/s; floor (pure fits, a goroutine per core) %.2f",
+      layout, r, ENVIRON["CURVEWATCH_FLEET_MODELS"], m["wall_s"], m["purefit_s_per_core"], m["wall_over_purefit"], m["refit_s_per_core"], m["models_per_s"], m["parallel_pure_over_purefit"]
+    if ("db_cpu_s" in m) printf "; the local PostgreSQL used %.1f ms of CPU per model", m["db_cpu_ms_per_model"]
+    if ("db_cpu_s" in m && layout == "shared") printf ", and without it the ratio (from Start) would be %.2f", m["startup_wall_less_db_over_purefit"]
     printf "\n" }')
   echo "$line"
   rate[$replicas]=$(printf '%s\n' "$line" | sed -E 's/.*; ([0-9.]+) models\/s;.*/\1/')

@@ -1,9 +1,12 @@
 package main
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"log/slog"
+	"os"
+	"runtime"
 	"time"
 
 	"github.com/curvewatch/curvewatch/daemon"
@@ -35,7 +38,13 @@ slot is run again on the next start or by another replica.
 Each refit also updates the model's alerts (pending, firing, resolved) in
 its own transaction and queues what the receivers in the config's alerting
 section must hear; any replica sends the queue, retrying failures, and
-re-sends firing alerts to Alertmanager every alerting.resend_every.`,
+re-sends firing alerts to Alertmanager every alerting.resend_every.
+
+Unless the environment sets them, it runs Go with GOMAXPROCS at twice
+--workers, so that a refit whose database reply has arrived need not wait
+for another refit's fit to be preempted, and with GOGC=400, so that the
+fits' short-lived memory is collected less often; GOMAXPROCS and GOGC in
+the environment override both.`,
 	example: "curvewatch serve --config curvewatch.yaml",
 	writes: []item{
 		{"database", "the fit history in the config's schema (fits, curve points, comparisons, baselines, watermarks, alert states and deliveries) and the job queue's tables there."},
@@ -83,6 +92,10 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		level = slog.LevelDebug
 	}
 	log := slog.New(slog.NewTextHandler(e.stderr, &slog.HandlerOptions{Level: level}))
+	workers = cmp.Or(workers, runtime.NumCPU())
+	rt := daemon.ServeRuntime(workers, os.Getenv)
+	defer rt.Apply()()
+	log.Info("starting", "workers", workers, "runtime", rt.String())
 	app, err := daemon.New(cfg, daemon.Options{Logger: log, Workers: workers, JobTimeout: jobTimeout})
 	if err != nil {
 		return err
