@@ -188,6 +188,7 @@ func BenchmarkFleet(b *testing.B) {
 		apps = append(apps, a)
 	}
 	b.ResetTimer()
+	stopProfile := func() {}
 	if path := os.Getenv(envFleetProfile); path != "" {
 		f, err := os.Create(path)
 		if err != nil {
@@ -196,10 +197,11 @@ func BenchmarkFleet(b *testing.B) {
 		if err := pprof.StartCPUProfile(f); err != nil {
 			b.Fatal(err)
 		}
-		defer func() {
+		stopProfile = sync.OnceFunc(func() {
 			pprof.StopCPUProfile()
 			f.Close()
-		}()
+		})
+		defer stopProfile()
 	}
 	dbCPU0, dbCPUOK := serverCPU(ctx, pool)
 	started := time.Now()
@@ -208,7 +210,7 @@ func BenchmarkFleet(b *testing.B) {
 			b.Fatal(err)
 		}
 	}
-	defer func() {
+	stopApps := sync.OnceFunc(func() {
 		sctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 		defer cancel()
 		for _, a := range apps {
@@ -219,7 +221,8 @@ func BenchmarkFleet(b *testing.B) {
 		if b.Failed() || os.Getenv("CURVEWATCH_TEST_APPLOG") != "" {
 			b.Logf("app log:\n%s", logs)
 		}
-	}()
+	})
+	defer stopApps()
 	// Generous: ten times the pure fit time per core, plus start-up.
 	deadline := time.Now().Add(2*time.Minute + 10*pureBefore/time.Duration(cores))
 	for {
@@ -240,6 +243,8 @@ func BenchmarkFleet(b *testing.B) {
 	startupWall := time.Since(started)
 	dbCPU1, dbCPUOK1 := serverCPU(ctx, pool)
 	b.StopTimer()
+	stopProfile()
+	stopApps() // before the second pass of pure fits, which they would share the cores with
 
 	// (b, again) The pure fits after the slot: the machine's speed drifts
 	// (other tenants), so the ratio uses the mean of both passes.
