@@ -17,22 +17,35 @@ import (
 // (Linux), and reports ok = false otherwise. The fleet benchmark uses it
 // to tell the database's share of the shared cores from the daemon's.
 func serverCPU(ctx context.Context, pool *pgxpool.Pool) (seconds float64, ok bool) {
+	kinds, ok := serverCPUByKind(ctx, pool)
+	for _, v := range kinds {
+		seconds += v
+	}
+	return seconds, ok
+}
+
+// serverCPUByKind is serverCPU by kind of process: "backend" for the
+// client connections, the background process's name from its title
+// ("checkpointer", "walwriter", "autovacuum worker", …) for the others,
+// and "exited" for processes already reaped (their CPU counts in the
+// postmaster's children's time, with the postmaster's own).
+func serverCPUByKind(ctx context.Context, pool *pgxpool.Pool) (seconds map[string]float64, ok bool) {
 	var backend int
 	if err := pool.QueryRow(ctx, `SELECT pg_backend_pid()`).Scan(&backend); err != nil {
-		return 0, false
+		return nil, false
 	}
 	// A backend's parent is the postmaster.
 	be, _, ok := procStat(backend)
 	if !ok {
-		return 0, false
+		return nil, false
 	}
 	postmaster := be.parent
 	ents, err := os.ReadDir("/proc")
 	if err != nil {
-		return 0, false
+		return nil, false
 	}
 	const ticks = 100.0 // USER_HZ, 100 on every Linux this runs on
-	var total uint64
+	total := map[string]uint64{}
 	for _, e := range ents {
 		pid, err := strconv.Atoi(e.Name())
 		if err != nil {
@@ -42,12 +55,33 @@ func serverCPU(ctx context.Context, pool *pgxpool.Pool) (seconds float64, ok boo
 		switch {
 		case !ok:
 		case pid == postmaster:
-			total += st.cpu + children
+			total["exited"] += st.cpu + children
 		case st.parent == postmaster:
-			total += st.cpu
+			total[processKind(pid)] += st.cpu
 		}
 	}
-	return float64(total) / ticks, true
+	seconds = make(map[string]float64, len(total))
+	for k, v := range total {
+		seconds[k] = float64(v) / ticks
+	}
+	return seconds, true
+}
+
+// processKind names a server process by its title (/proc/pid/cmdline),
+// "postgres: [cluster: ]what …": "backend" for a client's.
+func processKind(pid int) string {
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/cmdline", pid))
+	if err != nil {
+		return "unknown"
+	}
+	title := strings.TrimSpace(strings.ReplaceAll(string(b), "\x00", " "))
+	if strings.Contains(title, "(") || strings.Contains(title, "[local]") {
+		return "backend"
+	}
+	if i := strings.LastIndex(title, ": "); i >= 0 {
+		title = title[i+2:]
+	}
+	return title
 }
 
 type procInfo struct {

@@ -7,7 +7,9 @@ import (
 	"os"
 	"runtime"
 	"runtime/pprof"
+	"slices"
 	"strconv"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"testing"
@@ -203,6 +205,7 @@ func BenchmarkFleet(b *testing.B) {
 		})
 		defer stopProfile()
 	}
+	dbKinds0, _ := serverCPUByKind(ctx, pool)
 	dbCPU0, dbCPUOK := serverCPU(ctx, pool)
 	started := time.Now()
 	for _, a := range apps {
@@ -242,6 +245,7 @@ func BenchmarkFleet(b *testing.B) {
 	}
 	startupWall := time.Since(started)
 	dbCPU1, dbCPUOK1 := serverCPU(ctx, pool)
+	dbKinds1, _ := serverCPUByKind(ctx, pool)
 	b.StopTimer()
 	stopProfile()
 	stopApps() // before the second pass of pure fits, which they would share the cores with
@@ -297,6 +301,14 @@ func BenchmarkFleet(b *testing.B) {
 		b.ReportMetric(1000*db/float64(models), "db_cpu_ms_per_model")
 		rest := (startupWall.Seconds()*float64(cores) - db) / float64(cores)
 		b.ReportMetric(rest/pureFitPerCore, "startup_wall_less_db_over_purefit")
+		var kinds []string
+		for k, v := range dbKinds1 {
+			if d := v - dbKinds0[k]; d > 0 {
+				kinds = append(kinds, fmt.Sprintf("%s %.1f", k, 1000*d/float64(models)))
+			}
+		}
+		slices.Sort(kinds)
+		b.Logf("the database's CPU by kind of process, ms per model: %s", strings.Join(kinds, "; "))
 		b.Logf("the database used %.2f s of CPU (%.1f ms per model); from Start, with it taken off the cores: %.2f s per core, %.2f × the pure fits per core",
 			db, 1000*db/float64(models), rest, rest/pureFitPerCore)
 	}
