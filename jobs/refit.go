@@ -146,7 +146,7 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		}
 	}()
 
-	reason, cached, err := r.checkColumns(ctx, m)
+	cols, reason, cached, err := r.checkColumns(ctx, m)
 	if err != nil {
 		if ctx.Err() != nil {
 			return res, ctx.Err()
@@ -164,7 +164,7 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 		}
 		if cached {
 			r.Catalog.Forget(m.Table.String())
-			if reason, _, cerr := r.checkColumns(ctx, m); cerr == nil && reason != "" {
+			if _, reason, _, cerr := r.checkColumns(ctx, m); cerr == nil && reason != "" {
 				return fail(reason)
 			}
 		}
@@ -175,7 +175,7 @@ func (r *Runner) Run(ctx context.Context, m Model, slot time.Time) (res *Result,
 	numeric, text := m.Spec.Columns()
 	rows, err := source.Open(ctx, r.Source, source.Query{Table: m.Table, Time: m.Time, Where: m.Where,
 		From: end.Add(-m.Window), To: end, StatementTimeout: r.StatementTimeout,
-		Prefetch: fit.Need{Numeric: numeric, Text: text}})
+		Prefetch: fit.Need{Numeric: numeric, Text: text}, Columns: columnNames(cols)})
 	if err != nil {
 		return readFailed(err)
 	}
@@ -334,20 +334,28 @@ func epoch(s float64) time.Time {
 // checkColumns compares the spec's columns with the source table's
 // catalogue before any row is read, so that a column of the wrong type
 // fails with a reason naming it (not a cast error from the database). It
-// returns that reason, or an error when the catalogue cannot be read;
-// cached says the description came from r.Catalog.
-func (r *Runner) checkColumns(ctx context.Context, m Model) (reason string, cached bool, err error) {
-	var cols []source.Column
+// returns the table's columns and that reason, or an error when the
+// catalogue cannot be read; cached says the description came from
+// r.Catalog.
+func (r *Runner) checkColumns(ctx context.Context, m Model) (cols []source.Column, reason string, cached bool, err error) {
 	if r.Catalog != nil {
 		cols, cached, err = r.Catalog.Describe(ctx, r.Source, m.Table.String())
 	} else {
 		cols, err = source.Describe(ctx, r.Source, m.Table.String())
 	}
 	if err != nil {
-		return "", false, err
+		return nil, "", false, err
 	}
-	reason = columnProblem(cols, m)
-	return reason, cached, nil
+	return cols, columnProblem(cols, m), cached, nil
+}
+
+// columnNames lists the columns' names, in order.
+func columnNames(cols []source.Column) []string {
+	names := make([]string, len(cols))
+	for i, c := range cols {
+		names[i] = c.Name
+	}
+	return names
 }
 
 // columnProblem says what is wrong with the table's columns for model m,

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 
 	"github.com/curvewatch/curvewatch/fit"
@@ -144,11 +145,8 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 	if err != nil {
 		return 0, err
 	}
-	for _, c := range points {
-		if _, err := tx.Exec(ctx, `INSERT INTO fit_curves (fit_id, term, x, fit, se) VALUES ($1, $2, $3, $4, $5)`,
-			id, c.term, c.x, c.fit, c.se); err != nil {
-			return 0, fmt.Errorf("store the grid of curve %q: %w", c.term, err)
-		}
+	if err := insertCurves(ctx, tx, id, points); err != nil {
+		return 0, err
 	}
 	if !rec.Watermark.IsZero() {
 		if err := advanceWatermark(ctx, tx, rec.Model, rec.Watermark); err != nil {
@@ -156,6 +154,31 @@ func recordFit(ctx context.Context, tx pgx.Tx, rec FitRecord) (int64, error) {
 		}
 	}
 	return id, nil
+}
+
+// insertCurves stores the fit's curve grids, one fit_curves row per
+// curve, in one statement (one round trip however many curves).
+func insertCurves(ctx context.Context, tx pgx.Tx, fitID int64, points []curveGrid) error {
+	if len(points) == 0 {
+		return nil
+	}
+	var sql strings.Builder
+	sql.WriteString(`INSERT INTO fit_curves (fit_id, term, x, fit, se) VALUES `)
+	args := []any{fitID}
+	terms := make([]string, len(points))
+	for i, c := range points {
+		if i > 0 {
+			sql.WriteString(", ")
+		}
+		n := len(args)
+		fmt.Fprintf(&sql, "($1, $%d, $%d::float8[], $%d::float8[], $%d::float8[])", n+1, n+2, n+3, n+4)
+		args = append(args, c.term, c.x, c.fit, c.se)
+		terms[i] = fmt.Sprintf("%q", c.term)
+	}
+	if _, err := tx.Exec(ctx, sql.String(), args...); err != nil {
+		return fmt.Errorf("store the grids of curves %s: %w", strings.Join(terms, ", "), err)
+	}
+	return nil
 }
 
 // curveGrid is one curve's grid, as stored in fit_curves.

@@ -51,6 +51,11 @@ type Query struct {
 	// out after CacheRows + 1 rows, dropped, and left to Scan to stream in
 	// order.
 	Prefetch fit.Need
+	// Columns, when set, are the table's columns in table order as the
+	// caller last described them (see Catalog): Open then takes them for
+	// Rows.Columns instead of asking the server. A column since dropped
+	// fails the read that selects it.
+	Columns []string
 }
 
 // DefaultCacheRows is Query.CacheRows's default.
@@ -118,14 +123,18 @@ func Open(ctx context.Context, pool *pgxpool.Pool, q Query) (*Rows, error) {
 		}
 	}()
 	// Columns, in table order (the query never selects *).
-	rs, err := tx.Query(ctx, "SELECT * FROM "+table+" LIMIT 0")
-	if err != nil {
-		return nil, fmt.Errorf("source %s: %w", q.Table, err)
+	if len(q.Columns) > 0 {
+		r.columns = slices.Clone(q.Columns)
+	} else {
+		rs, err := tx.Query(ctx, "SELECT * FROM "+table+" LIMIT 0")
+		if err != nil {
+			return nil, fmt.Errorf("source %s: %w", q.Table, err)
+		}
+		for _, fd := range rs.FieldDescriptions() {
+			r.columns = append(r.columns, fd.Name)
+		}
+		rs.Close()
 	}
-	for _, fd := range rs.FieldDescriptions() {
-		r.columns = append(r.columns, fd.Name)
-	}
-	rs.Close()
 	if len(q.Prefetch.Numeric)+len(q.Prefetch.Text) > 0 && q.CacheRows > 0 {
 		ok, err := r.prefetch(ctx, q.Prefetch)
 		if err != nil {

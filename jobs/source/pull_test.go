@@ -328,3 +328,54 @@ func TestPrefetchEmptyAndFailingWindows(t *testing.T) {
 		t.Errorf("%d connections still held after failed opens", got)
 	}
 }
+
+// TestOpenTakesKnownColumns checks Query.Columns: the caller's description
+// stands in for asking the server, gives the same columns, and a stale one
+// that names a dropped column fails the read with an error naming the
+// table, holding no connection.
+func TestOpenTakesKnownColumns(t *testing.T) {
+	ctx := context.Background()
+	pool := newPool(t)
+	t0 := time.Date(2026, 3, 1, 0, 0, 0, 0, time.UTC)
+	readings(t, ctx, pool, 30, t0)
+	q := source.Query{Table: source.Table{Name: "sonde_readings"}, Time: "observed_at",
+		From: t0, To: t0.Add(48 * time.Hour), Prefetch: fit.Need{Numeric: []string{"water_temp", "flow"}}}
+	asked, err := source.Open(ctx, pool, q)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fromServer := asked.Columns()
+	asked.Close()
+	want := []string{"observed_at", "site", "water_temp", "flow", "dissolved_oxygen", "alarms"}
+	if !slices.Equal(fromServer, want) {
+		t.Fatalf("columns from the server %v, want %v", fromServer, want)
+	}
+	q.Columns = slices.Clone(want)
+	known, err := source.Open(ctx, pool, q)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := known.Columns(); !slices.Equal(got, want) {
+		t.Errorf("columns from Query.Columns %v, want %v", got, want)
+	}
+	q.Columns[0] = "changed" // Columns is the caller's: Open keeps a copy
+	if got := known.Columns(); got[0] != "observed_at" {
+		t.Errorf("Rows.Columns follows the caller's slice: %v", got)
+	}
+	n := 0
+	if err := known.Scan(ctx, fit.Need{Numeric: []string{"water_temp"}}, func(b *fit.Block) error { n += b.Rows; return nil }); err != nil || n != 30 {
+		t.Errorf("scanned %d rows (%v), want 30", n, err)
+	}
+	known.Close()
+
+	if _, err := pool.Exec(ctx, `ALTER TABLE sonde_readings DROP COLUMN flow`); err != nil {
+		t.Fatal(err)
+	}
+	q.Columns = want // stale: flow is gone
+	if _, err := source.Open(ctx, pool, q); err == nil || !strings.Contains(err.Error(), "sonde_readings") || !strings.Contains(err.Error(), "flow") {
+		t.Errorf("a stale description naming a dropped column: %v, want an error naming the table and the column", err)
+	}
+	if got := pool.Stat().AcquiredConns(); got != 0 {
+		t.Errorf("%d connections still held", got)
+	}
+}
