@@ -72,11 +72,16 @@ type Options struct {
 	// messages go to it too, at warning level and above unless the
 	// logger is enabled for debug.
 	Logger *slog.Logger
+	// CPUs is how many cores the daemon may use (default: GOMAXPROCS when
+	// New runs, which follows a container's CPU limit; serve reads it
+	// before it raises GOMAXPROCS, see ServeRuntime). Workers defaults to
+	// it, and each fit gets CPUs / Workers goroutines.
+	CPUs int
 	// Workers is the most refits this process computes at once (default:
-	// the number of CPUs). Twice as many run at once, so that while some
-	// read rows or write the history the others keep the cores busy; the
-	// fits, comparisons and predictive checks — the work of the cores —
-	// are bounded to Workers at a time (jobs.Slots).
+	// CPUs). Twice as many run at once, so that while some read rows or
+	// write the history the others keep the cores busy; the fits,
+	// comparisons and predictive checks — the work of the cores — are
+	// bounded to Workers at a time (jobs.Slots).
 	Workers int
 	// JobTimeout bounds one refit (default 10 minutes). A refit that
 	// overruns it is cancelled, rolled back and recorded as failed.
@@ -111,7 +116,8 @@ type Options struct {
 
 func (o Options) withDefaults() Options {
 	o.Logger = cmp.Or(o.Logger, slog.New(slog.DiscardHandler))
-	o.Workers = cmp.Or(o.Workers, runtime.NumCPU())
+	o.CPUs = cmp.Or(o.CPUs, runtime.GOMAXPROCS(0))
+	o.Workers = cmp.Or(o.Workers, o.CPUs)
 	o.JobTimeout = cmp.Or(o.JobTimeout, DefaultJobTimeout)
 	o.RescueAfter = cmp.Or(o.RescueAfter, 2*o.JobTimeout)
 	o.RescueAfter = max(o.RescueAfter, o.JobTimeout+time.Second)

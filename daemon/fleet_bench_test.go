@@ -182,7 +182,7 @@ func BenchmarkFleet(b *testing.B) {
 	logs := &logBuffer{}
 	var apps []*App
 	for range replicas {
-		a, err := New(cfg, Options{Workers: workers, RetryMin: 100 * time.Millisecond, RetryMax: 500 * time.Millisecond,
+		a, err := New(cfg, Options{CPUs: cores, Workers: workers, RetryMin: 100 * time.Millisecond, RetryMax: 500 * time.Millisecond,
 			Logger: slog.New(slog.NewTextHandler(logs, &slog.HandlerOptions{Level: slog.LevelInfo}))})
 		if err != nil {
 			b.Fatal(err)

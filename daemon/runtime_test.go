@@ -62,3 +62,28 @@ func TestRuntimeApplyRestores(t *testing.T) {
 		t.Errorf("GOMAXPROCS after an empty Apply = %d, want %d", got, procs)
 	}
 }
+
+// TestOptionsCPUsAndWorkers checks how Options sizes the compute: CPUs
+// defaults to GOMAXPROCS (which follows a container's CPU limit, where
+// runtime.NumCPU does not), Workers to CPUs.
+func TestOptionsCPUsAndWorkers(t *testing.T) {
+	procs := runtime.GOMAXPROCS(0)
+	tests := []struct {
+		name        string
+		in          Options
+		cpus, works int
+	}{
+		{"defaults", Options{}, procs, procs},
+		{"workers set", Options{Workers: 3}, procs, 3},
+		{"cpus set", Options{CPUs: 6}, 6, 6},
+		{"both set", Options{CPUs: 8, Workers: 2}, 8, 2},
+	}
+	for _, tt := range tests {
+		t.Run(tt.name, func(t *testing.T) {
+			got := tt.in.withDefaults()
+			if got.CPUs != tt.cpus || got.Workers != tt.works {
+				t.Errorf("CPUs %d, Workers %d; want %d and %d", got.CPUs, got.Workers, tt.cpus, tt.works)
+			}
+		})
+	}
+}

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
-	"runtime"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -95,7 +94,7 @@ func (w *refitWorker) Work(ctx context.Context, job *river.Job[RefitArgs]) error
 
 	d := a.alerting()
 	// The refits at once share the cores: each fit gets its share.
-	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log, FitWorkers: max(1, runtime.NumCPU()/a.opts.Workers),
+	runner := &jobs.Runner{Source: pool, Store: store, Logger: a.log, FitWorkers: max(1, a.opts.CPUs/a.opts.Workers),
 		Slots: a.slots, Catalog: a.catalog}
 	if d != nil {
 		runner.OnRecord = d.alerter.onRecord

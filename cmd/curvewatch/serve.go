@@ -68,7 +68,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	var jobTimeout time.Duration
 	fl := newFlags("serve", serveHelp)
 	fl.Required(&path, "config", "FILE", "the daemon config (YAML): database, schema, listen address and models", "the daemon config (YAML) to serve")
-	fl.Int(&workers, "workers", "N", 0, "the most refits this process computes at once (0: one per CPU); twice as many are under way, so that waits on the database overlap other refits' computing")
+	fl.Int(&workers, "workers", "N", 0, "the most refits this process computes at once (0: one per CPU it may use, GOMAXPROCS's default, which follows a container's CPU limit); twice as many are under way, so that waits on the database overlap other refits' computing")
 	fl.Duration(&jobTimeout, "job-timeout", "DURATION", daemon.DefaultJobTimeout, "the longest one refit may run; one that overruns is cancelled and recorded as failed")
 	if done, err := fl.parse(e, args); done || err != nil {
 		return err
@@ -92,11 +92,14 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		level = slog.LevelDebug
 	}
 	log := slog.New(slog.NewTextHandler(e.stderr, &slog.HandlerOptions{Level: level}))
-	workers = cmp.Or(workers, runtime.NumCPU())
+	// The cores this process may use: GOMAXPROCS before serve raises it
+	// (the runtime's default follows a container's CPU limit).
+	cpus := runtime.GOMAXPROCS(0)
+	workers = cmp.Or(workers, cpus)
 	rt := daemon.ServeRuntime(workers, os.Getenv)
 	defer rt.Apply()()
-	log.Info("starting", "workers", workers, "runtime", rt.String())
-	app, err := daemon.New(cfg, daemon.Options{Logger: log, Workers: workers, JobTimeout: jobTimeout})
+	log.Info("starting", "cpus", cpus, "workers", workers, "runtime", rt.String())
+	app, err := daemon.New(cfg, daemon.Options{Logger: log, CPUs: cpus, Workers: workers, JobTimeout: jobTimeout})
 	if err != nil {
 		return err
 	}
