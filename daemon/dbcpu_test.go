@@ -10,25 +10,15 @@ import (
 	"github.com/jackc/pgx/v5/pgxpool"
 )
 
-// serverCPU reads the CPU time the PostgreSQL server behind pool has used
-// so far, in seconds: its postmaster's own and its reaped children's, plus
-// every live child's (backends and background processes). It works only
-// when the server runs on this machine and /proc shows its processes
-// (Linux), and reports ok = false otherwise. The fleet benchmark uses it
-// to tell the database's share of the shared cores from the daemon's.
-func serverCPU(ctx context.Context, pool *pgxpool.Pool) (seconds float64, ok bool) {
-	kinds, ok := serverCPUByKind(ctx, pool)
-	for _, v := range kinds {
-		seconds += v
-	}
-	return seconds, ok
-}
-
-// serverCPUByKind is serverCPU by kind of process: "backend" for the
-// client connections, the background process's name from its title
+// serverCPUByKind reads the CPU time the PostgreSQL server behind pool has
+// used so far, in seconds, by kind of process: "backend" for the client
+// connections, the background process's name from its title
 // ("checkpointer", "walwriter", "autovacuum worker", …) for the others,
-// and "exited" for processes already reaped (their CPU counts in the
-// postmaster's children's time, with the postmaster's own).
+// and "exited" for the postmaster's own and its reaped children's. It
+// works only when the server runs on this machine and /proc shows its
+// processes (Linux), and reports ok = false otherwise. The fleet benchmark
+// uses it to tell the database's share of the shared cores from the
+// daemon's.
 func serverCPUByKind(ctx context.Context, pool *pgxpool.Pool) (seconds map[string]float64, ok bool) {
 	var backend int
 	if err := pool.QueryRow(ctx, `SELECT pg_backend_pid()`).Scan(&backend); err != nil {
@@ -65,6 +55,14 @@ func serverCPUByKind(ctx context.Context, pool *pgxpool.Pool) (seconds map[strin
 		seconds[k] = float64(v) / ticks
 	}
 	return seconds, true
+}
+
+// sumCPU is the server's CPU time over every kind of process.
+func sumCPU(kinds map[string]float64) (seconds float64) {
+	for _, v := range kinds {
+		seconds += v
+	}
+	return seconds
 }
 
 // processKind names a server process by its title (/proc/pid/cmdline),

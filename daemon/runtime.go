@@ -7,7 +7,7 @@ import (
 )
 
 // DefaultGCPercent is the collector's target that serve sets when GOGC is
-// not in the environment (see TuneRuntime).
+// not in the environment (see ServeRuntime).
 const DefaultGCPercent = 400
 
 // RuntimeSettings are the Go runtime's settings for a process serving
